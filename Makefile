@@ -1,0 +1,29 @@
+# wsad: every target installs what it needs through `setup`.
+PYTHON ?= python3
+VENV ?= .venv
+BIN := $(VENV)/bin
+TORCH_SPEC ?= torch==2.13.0
+STAMP := $(VENV)/.installed
+DEMO_DIR ?= demo_out
+
+.PHONY: setup test demo clean
+
+setup: $(STAMP)
+
+# Re-install only when the package metadata changes; torch goes first so that
+# no other requirement drags in a large accelerator build.
+$(STAMP): pyproject.toml
+	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
+	$(BIN)/python -m pip install --quiet --upgrade pip
+	$(BIN)/python -m pip install --quiet "$(TORCH_SPEC)"
+	$(BIN)/python -m pip install --quiet -e ".[dev]"
+	touch $(STAMP)
+
+test: setup
+	$(BIN)/python -m pytest -q tests
+
+demo: setup
+	bash scripts/demo.sh $(DEMO_DIR)
+
+clean:
+	rm -rf $(VENV) $(DEMO_DIR) .pytest_cache

@@ -1,0 +1,42 @@
+"""Shared fixtures: small synthetic stores made once per session."""
+from __future__ import annotations
+
+import hashlib
+import os
+from pathlib import Path
+
+import pytest
+
+from wsad.synthetic import generate_store, load_scenario
+
+# A small version of the default scenario: seconds to make, still two classes per split.
+SMALL = ["videos_per_camera.train=4", "videos_per_camera.test=4", "length.mean=40",
+         "length.max=120"]
+
+
+def make_store(path: Path, scenario: str = "warehouse", overrides: list[str] | None = None) -> Path:
+    cfg = load_scenario(scenario, SMALL + list(overrides or []))
+    return generate_store(cfg, path, progress=False)
+
+
+@pytest.fixture(scope="session")
+def small_store(tmp_path_factory) -> Path:
+    return make_store(tmp_path_factory.mktemp("stores") / "small")
+
+
+@pytest.fixture(scope="session")
+def demo_store(tmp_path_factory) -> Path:
+    """The default scenario exactly as the demo makes it."""
+    return generate_store(load_scenario("warehouse"), tmp_path_factory.mktemp("stores") / "demo",
+                          progress=False)
+
+
+def tree_hash(root: Path) -> dict[str, str]:
+    """Content hash of every file under root (symlinks hashed by target path)."""
+    out = {}
+    for p in sorted(Path(root).rglob("*")):
+        if p.is_symlink():
+            out[str(p.relative_to(root))] = "link:" + os.readlink(p)
+        elif p.is_file():
+            out[str(p.relative_to(root))] = hashlib.sha256(p.read_bytes()).hexdigest()
+    return out

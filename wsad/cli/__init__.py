@@ -1,0 +1,1 @@
+"""Console entry points (thin: parse, call the package, print)."""

@@ -1,0 +1,114 @@
+"""Reading a store. Arrays are opened as memory maps, one video at a time."""
+from __future__ import annotations
+
+import json
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+
+from ..errors import WsadError
+
+FORMAT_VERSION = 1
+MANIFEST_COLUMNS = ["video", "file", "label", "split", "group", "frames"]
+EVENT_COLUMNS = ["video", "start", "end"]
+SPLITS = ("train", "test")
+DTYPES = (np.dtype("float16"), np.dtype("float32"))
+CROP_MODES = ("mean", "each")
+
+
+def expected_segments(frames: int, segment_frames: int = 16) -> int:
+    """Segments of a video of ``frames`` frames: segment t covers frames
+    [16t, 16t+16); the last one also covers the tail (so floor, at least 1)."""
+    return max(1, int(frames) // int(segment_frames))
+
+
+def segment_of_frame(frames: int, n_segments: int, segment_frames: int = 16) -> np.ndarray:
+    """Index of the segment covering each frame (tail frames go to the last)."""
+    return np.minimum(np.arange(int(frames)) // segment_frames, n_segments - 1)
+
+
+class FeatureStore:
+    """A validated-on-demand view of a store directory.
+
+    Parameters
+    ----------
+    root : path of the store.
+    crops : ``"mean"`` averages the views of ``[crops, T, D]`` arrays into one
+        ``[T, D]`` view; ``"each"`` keeps every crop as its own view.
+
+    ``views(video)`` always returns ``[V, T, D]`` float32 (V = 1 for
+    ``mean``), reading only that video's memory map.
+    """
+
+    def __init__(self, root: str | Path, crops: str = "mean"):
+        self.root = Path(root)
+        if crops not in CROP_MODES:
+            raise WsadError(f"data.crops={crops!r} is not known; use one of {list(CROP_MODES)}")
+        self.crops = crops
+        if not (self.root / "store.json").is_file():
+            raise WsadError(f"{self.root} is not a feature store (no store.json); "
+                            "make one with wsad-synth or wsad-index")
+        try:
+            self.meta = json.loads((self.root / "store.json").read_text())
+        except (OSError, ValueError) as err:
+            raise WsadError(f"{self.root}/store.json is unreadable ({err}); "
+                            "run wsad-check for details") from None
+        self.dim = int(self.meta["dim"])
+        self.segment_frames = int(self.meta.get("segment_frames", 16))
+        self.manifest = pd.read_csv(self.root / "manifest.csv", dtype={"video": str, "group": str,
+                                                                       "file": str, "split": str})
+        ev_path = self.root / "events.csv"
+        if ev_path.is_file():
+            self.events = pd.read_csv(ev_path, dtype={"video": str})
+        else:
+            self.events = pd.DataFrame(columns=EVENT_COLUMNS)
+        self._rows = {v: i for i, v in enumerate(self.manifest["video"])}
+
+    # -- manifest helpers -------------------------------------------------
+    def videos(self, split: str | None = None) -> list[str]:
+        m = self.manifest if split is None else self.manifest[self.manifest["split"] == split]
+        return list(m["video"])
+
+    def row(self, video: str) -> pd.Series:
+        return self.manifest.iloc[self._rows[video]]
+
+    def label(self, video: str) -> int:
+        return int(self.row(video)["label"])
+
+    def frames(self, video: str) -> int:
+        return int(self.row(video)["frames"])
+
+    # -- arrays -----------------------------------------------------------
+    def raw(self, video: str) -> np.ndarray:
+        """The video's array as stored (memory map; float16 or float32)."""
+        return np.load(self.root / self.row(video)["file"], mmap_mode="r")
+
+    def n_segments(self, video: str) -> int:
+        return int(self.raw(video).shape[-2])
+
+    def views(self, video: str) -> np.ndarray:
+        """``[V, T, D]`` float32 views of one video (see class docstring)."""
+        arr = self.raw(video)
+        if arr.ndim == 2:
+            return np.asarray(arr, dtype=np.float32)[None]
+        if self.crops == "mean":
+            return arr.astype(np.float32).mean(axis=0, keepdims=True)
+        return np.asarray(arr, dtype=np.float32)
+
+    def n_views(self, video: str) -> int:
+        arr = self.raw(video)
+        return 1 if (arr.ndim == 2 or self.crops == "mean") else int(arr.shape[0])
+
+    # -- ground truth -----------------------------------------------------
+    def frame_labels(self, video: str) -> np.ndarray | None:
+        """0/1 per frame from events.csv, or None for an anomalous video
+        without events (frame-level metrics then skip it)."""
+        n = self.frames(video)
+        lab = np.zeros(n, dtype=np.int8)
+        ev = self.events[self.events["video"] == video]
+        if self.label(video) == 1 and len(ev) == 0:
+            return None
+        for s, e in zip(ev["start"], ev["end"]):
+            lab[int(s):int(e)] = 1
+        return lab

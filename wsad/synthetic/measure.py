@@ -1,0 +1,76 @@
+"""Measurements of a synthetic store against its known ground truth."""
+from __future__ import annotations
+
+import numpy as np
+from omegaconf import OmegaConf
+
+from ..errors import WsadError
+from ..store.format import FeatureStore
+from .generator import Signatures
+
+
+def lag1_autocorrelation(store: FeatureStore, split: str = "train", label: int = 0,
+                         max_videos: int = 200) -> float:
+    """Mean over videos and dims of the lag-1 autocorrelation of the
+    de-meaned segment features, sum_t (x_t - m)(x_{t+1} - m) / sum_t (x_t - m)^2.
+    Normal videos by default, so that events do not add correlation."""
+    vals = []
+    for v in store.videos(split)[:max_videos * 4]:
+        if store.label(v) != label:
+            continue
+        x = store.views(v)[0].astype(np.float64)
+        if len(x) < 3:
+            continue
+        x = x - x.mean(axis=0)
+        num = (x[:-1] * x[1:]).sum(axis=0)
+        den = (x ** 2).sum(axis=0)
+        vals.append(float(np.mean(num / np.maximum(den, 1e-12))))
+        if len(vals) >= max_videos:
+            break
+    if not vals:
+        raise WsadError(f"no {split} videos with label {label} to measure")
+    return float(np.mean(vals))
+
+
+def oracle_scores(store: FeatureStore, video: str) -> np.ndarray:
+    """Per-segment score of an oracle that knows the scenario: the largest
+    projection of x_t on the signatures of the event types that are anomalous
+    in the video's context, less the context's known look. It knows the
+    signatures, not the camera's background, which it cannot tell apart
+    from an event's shift."""
+    scen = store.meta.get("scenario")
+    if scen is None:
+        raise WsadError(f"{store.root} is not a synthetic store; the oracle needs its scenario")
+    cfg = OmegaConf.create(scen)
+    sig = Signatures.build(cfg)
+    ctx = next(k for k in cfg.cameras if store.row(video)["group"].startswith(f"{k}_"))
+    kinds = [t for t, spec in cfg.events.types.items() if ctx in spec.get("anomalous_in", [])]
+    x = store.views(video).mean(axis=0).astype(np.float64) - sig.context[ctx]
+    if not kinds:
+        return np.full(len(x), -1e9)
+    return np.max(np.stack([x @ sig.event[t] for t in kinds]), axis=0)
+
+
+def anomalous_segment_share(store: FeatureStore, split: str = "test") -> float:
+    """Share of segments (of all videos of a split) that overlap an event."""
+    hit = total = 0
+    sf = store.segment_frames
+    for v in store.videos(split):
+        t = store.n_segments(v)
+        total += t
+        lab = store.frame_labels(v)
+        if lab is None or not lab.any():
+            continue
+        seg = np.minimum(np.arange(len(lab)) // sf, t - 1)
+        hit += int((np.bincount(seg, weights=lab, minlength=t) > 0).sum())
+    return hit / max(1, total)
+
+
+def oracle_frame_auc(store: FeatureStore, split: str = "test") -> float:
+    """Frame AUC of :func:`oracle_scores` on a split (the scenario's ceiling)."""
+    from ..evaluate import VideoScores, compute_metrics
+
+    vids = [VideoScores(v, store.row(v)["group"], store.label(v), oracle_scores(store, v),
+                        store.frame_labels(v), store.frames(v), store.segment_frames)
+            for v in store.videos(split)]
+    return compute_metrics(vids)["frame_auc"]
