@@ -110,17 +110,16 @@ class VideoScores:
 
 
 def frame_table(videos: list[VideoScores]) -> pd.DataFrame:
-    """Frames of all videos with ground truth: columns video, frame, score, label, group."""
+    """Frames of all videos: columns video, frame, score, label, group. An
+    anomalous video without events has label -1 (unknown) on every frame."""
+    cols = ["video", "frame", "score", "label", "group"]
     parts = []
     for v in videos:
-        if v.frame_labels is None:
-            continue
+        lab = v.frame_labels.astype(np.int8) if v.frame_labels is not None else np.full(v.frames, -1, np.int8)
         parts.append(pd.DataFrame({"video": v.video, "frame": np.arange(v.frames, dtype=np.int64),
                                    "score": v.frame_scores().astype(np.float64),
-                                   "label": v.frame_labels.astype(np.int8), "group": v.group}))
-    if not parts:
-        return pd.DataFrame(columns=["video", "frame", "score", "label", "group"])
-    return pd.concat(parts, ignore_index=True)
+                                   "label": lab, "group": v.group}))
+    return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=cols)
 
 
 def compute_metrics(videos: list[VideoScores]) -> dict[str, float]:

@@ -64,6 +64,16 @@ class FeatureStore:
         else:
             self.events = pd.DataFrame(columns=EVENT_COLUMNS)
         self._rows = {v: i for i, v in enumerate(self.manifest["video"])}
+        # plain dicts: looked up per video in every epoch, so no pandas indexing there
+        self._label = dict(zip(self.manifest["video"], self.manifest["label"].astype(int)))
+        self._frames = dict(zip(self.manifest["video"], self.manifest["frames"].astype(int)))
+        self._file = dict(zip(self.manifest["video"], self.manifest["file"]))
+        self._group = dict(zip(self.manifest["video"], self.manifest["group"]))
+        self._spans: dict[str, list[tuple[int, int]]] = {}
+        for v, s, e in zip(self.events["video"], self.events["start"], self.events["end"]):
+            self._spans.setdefault(v, []).append((int(s), int(e)))
+        self._n_seg: dict[str, int] = {}
+        self._n_views: dict[str, int] = {}
 
     # -- manifest helpers -------------------------------------------------
     def videos(self, split: str | None = None) -> list[str]:
@@ -74,18 +84,28 @@ class FeatureStore:
         return self.manifest.iloc[self._rows[video]]
 
     def label(self, video: str) -> int:
-        return int(self.row(video)["label"])
+        return int(self._label[video])
 
     def frames(self, video: str) -> int:
-        return int(self.row(video)["frames"])
+        return int(self._frames[video])
+
+    def group(self, video: str) -> str:
+        return str(self._group[video])
 
     # -- arrays -----------------------------------------------------------
     def raw(self, video: str) -> np.ndarray:
         """The video's array as stored (memory map; float16 or float32)."""
-        return np.load(self.root / self.row(video)["file"], mmap_mode="r")
+        return np.load(self.root / self._file[video], mmap_mode="r")
+
+    def _shape(self, video: str) -> None:
+        arr = self.raw(video)
+        self._n_seg[video] = int(arr.shape[-2])
+        self._n_views[video] = 1 if (arr.ndim == 2 or self.crops == "mean") else int(arr.shape[0])
 
     def n_segments(self, video: str) -> int:
-        return int(self.raw(video).shape[-2])
+        if video not in self._n_seg:
+            self._shape(video)
+        return self._n_seg[video]
 
     def views(self, video: str) -> np.ndarray:
         """``[V, T, D]`` float32 views of one video (see class docstring)."""
@@ -97,8 +117,9 @@ class FeatureStore:
         return np.asarray(arr, dtype=np.float32)
 
     def n_views(self, video: str) -> int:
-        arr = self.raw(video)
-        return 1 if (arr.ndim == 2 or self.crops == "mean") else int(arr.shape[0])
+        if video not in self._n_views:
+            self._shape(video)
+        return self._n_views[video]
 
     # -- ground truth -----------------------------------------------------
     def frame_labels(self, video: str) -> np.ndarray | None:
@@ -106,9 +127,9 @@ class FeatureStore:
         without events (frame-level metrics then skip it)."""
         n = self.frames(video)
         lab = np.zeros(n, dtype=np.int8)
-        ev = self.events[self.events["video"] == video]
-        if self.label(video) == 1 and len(ev) == 0:
+        spans = self._spans.get(video, [])
+        if self.label(video) == 1 and not spans:
             return None
-        for s, e in zip(ev["start"], ev["end"]):
-            lab[int(s):int(e)] = 1
+        for s, e in spans:
+            lab[s:e] = 1
         return lab

@@ -1,0 +1,26 @@
+"""A per-segment MLP scorer."""
+from __future__ import annotations
+
+from torch import nn
+
+from .base import HeadOutput, check_sizes, mlp_layers, unpack
+
+
+class MLPHead(nn.Module):
+    """s_t = sigmoid(MLP(x_t)): Linear-ReLU-Dropout per hidden size, then one
+    logit. ``hidden=[512, 32]`` with dropout 0.6 is the MIL ranking head
+    (Sultani et al., CVPR 2018; from memory)."""
+
+    def __init__(self, in_dim: int, hidden=(512, 32), dropout: float = 0.6):
+        super().__init__()
+        hidden = check_sizes(hidden)
+        self.embed = nn.Sequential(nn.Linear(in_dim, hidden[0]), nn.ReLU())
+        self.drop = nn.Dropout(dropout)
+        self.score = mlp_layers(hidden, dropout)
+
+    def forward(self, x, mask):
+        # score real segments only: padding costs nothing (bags vary in length)
+        flat = x[mask]
+        h = self.embed(flat)
+        logits = self.score(self.drop(h)).squeeze(-1)
+        return HeadOutput(logits=unpack(logits, mask), embeddings=unpack(h, mask))

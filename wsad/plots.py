@@ -1,0 +1,65 @@
+"""Plots written as artifacts: ROC curve and score timelines."""
+from __future__ import annotations
+
+from pathlib import Path
+
+import matplotlib
+
+matplotlib.use("Agg")
+import matplotlib.pyplot as plt  # noqa: E402
+import numpy as np  # noqa: E402
+import seaborn as sns  # noqa: E402
+from sklearn.metrics import roc_curve  # noqa: E402
+
+from .evaluate import VideoScores  # noqa: E402
+
+
+def roc_plot(curves: dict[str, tuple[np.ndarray, np.ndarray]], path: Path, title: str = "") -> Path:
+    """curves: name -> (frame labels, frame scores)."""
+    sns.set_theme(style="whitegrid")
+    fig, ax = plt.subplots(figsize=(4.6, 4.2))
+    for name, (y, s) in curves.items():
+        fpr, tpr, _ = roc_curve(y, s)
+        ax.plot(fpr, tpr, lw=1.6, label=name)
+    ax.plot([0, 1], [0, 1], ls="--", c="grey", lw=1, label="chance")
+    ax.set(xlabel="false positive rate (frames)", ylabel="true positive rate (frames)",
+           title=title or "frame-level ROC")
+    ax.legend(loc="lower right", fontsize=8)
+    fig.tight_layout()
+    fig.savefig(path, dpi=120)
+    plt.close(fig)
+    return path
+
+
+def pick_timeline_videos(videos: list[VideoScores], n: int = 6) -> list[VideoScores]:
+    """Anomalous videos with events first, then normal ones, in a stable order."""
+    anom = [v for v in videos if v.label == 1 and v.frame_labels is not None]
+    norm = [v for v in videos if v.label == 0]
+    k = min(len(anom), max(n - min(len(norm), n // 3), n // 2))
+    return anom[:k] + norm[:n - k]
+
+
+def timeline_plot(videos: list[VideoScores], path: Path, title: str = "") -> Path:
+    """Frame scores over time for a few test videos, ground truth shaded."""
+    sns.set_theme(style="white")
+    chosen = pick_timeline_videos(videos)
+    fig, axes = plt.subplots(len(chosen), 1, figsize=(8, 1.3 * len(chosen) + 0.6), squeeze=False)
+    for ax, v in zip(axes[:, 0], chosen):
+        fs = v.frame_scores()
+        if v.frame_labels is not None and v.frame_labels.any():
+            ax.fill_between(np.arange(v.frames), 0, 1, where=v.frame_labels > 0, color="tab:red",
+                            alpha=0.18, step="post", label="ground truth")
+        ax.plot(np.arange(v.frames), fs, lw=1.1, color="tab:blue", label="score")
+        ax.axhline(0.5, ls=":", c="grey", lw=0.8)
+        ax.set_ylim(-0.02, 1.02)
+        ax.set_ylabel("score", fontsize=8)
+        ax.set_title(f"{v.video} ({'anomalous' if v.label else 'normal'})", fontsize=8, loc="left")
+        ax.tick_params(labelsize=7)
+    axes[-1, 0].set_xlabel("frame")
+    axes[0, 0].legend(loc="upper right", fontsize=7)
+    if title:
+        fig.suptitle(title, fontsize=9)
+    fig.tight_layout()
+    fig.savefig(path, dpi=110)
+    plt.close(fig)
+    return path

@@ -1,0 +1,27 @@
+"""The one signature all terms share."""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import torch
+
+
+@dataclass
+class TermInputs:
+    scores: torch.Tensor        # [B, T] segment scores in (0, 1)
+    logits: torch.Tensor        # [B, T]
+    mask: torch.Tensor          # [B, T] True = real segment
+    y: torch.Tensor             # [B] video labels (0/1)
+    bag_scores: torch.Tensor    # [B] pooled scores
+    embeddings: torch.Tensor    # [B, T, H]
+    pairs: torch.Tensor | None  # [P, 2] (anomalous row, normal row) or None
+
+
+def bag_rows(inp: TermInputs, on: str) -> torch.Tensor:
+    """Boolean [B]: the bags a per-bag term applies to (``anomalous`` or ``all``)."""
+    if on == "all":
+        return torch.ones_like(inp.y, dtype=torch.bool)
+    if on == "anomalous":
+        return inp.y > 0.5
+    from ..errors import WsadError
+    raise WsadError(f"term option on={on!r}; use 'anomalous' or 'all'")

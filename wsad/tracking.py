@@ -1,0 +1,149 @@
+"""MLflow logging: store set-up done once, retries on a busy SQLite store,
+flattened params, readable run names."""
+from __future__ import annotations
+
+import os
+import subprocess
+import time
+from pathlib import Path
+from typing import Any, Callable
+
+from omegaconf import DictConfig, OmegaConf
+
+from . import PROJECT_ROOT, __version__
+
+# keys left out of run names: they say where, not what
+_NAME_SKIP = ("data.root", "seed", "tracking.", "trainer.progress", "trainer.out_dir", "hydra.")
+
+
+def retry(fn: Callable[[], Any], attempts: int = 8, delay: float = 0.25) -> Any:
+    """Call fn, retrying briefly while SQLite reports the database is locked."""
+    for i in range(attempts):
+        try:
+            return fn()
+        except Exception as err:  # noqa: BLE001 - MLflow wraps the driver's error types
+            if "locked" not in str(err).lower() or i == attempts - 1:
+                raise
+            time.sleep(delay * (2 ** i))
+    return None
+
+
+def prepare(uri: str, experiment: str) -> str:
+    """Create (or open) the tracking store and the experiment; returns its id.
+
+    Call this once before parallel workers start: several processes opening
+    a fresh SQLite store at once race on its schema migration.
+    """
+    import mlflow
+
+    mlflow.set_tracking_uri(uri)
+    client = mlflow.MlflowClient(uri)
+    exp = retry(lambda: client.get_experiment_by_name(experiment))
+    if exp is not None:
+        return exp.experiment_id
+    try:
+        return retry(lambda: client.create_experiment(experiment))
+    except Exception:  # noqa: BLE001 - created meanwhile by another process
+        return client.get_experiment_by_name(experiment).experiment_id
+
+
+def flatten(cfg: DictConfig | dict, prefix: str = "") -> dict[str, str]:
+    """{"head.hidden": "[512, 32]", ...} from a nested config (resolved)."""
+    data = OmegaConf.to_container(cfg, resolve=True) if isinstance(cfg, DictConfig) else cfg
+    out: dict[str, str] = {}
+    for k, v in data.items():
+        key = f"{prefix}{k}"
+        if isinstance(v, dict):
+            out.update(flatten(v, key + "."))
+        else:
+            out[key] = str(v)[:500]
+    return out
+
+
+def run_name(cfg: DictConfig, overrides: list[str] | None) -> str:
+    if cfg.tracking.get("run_name"):
+        return str(cfg.tracking.run_name)
+    parts = [str(cfg.get("recipe_name", "run"))]
+    for o in overrides or []:
+        key = o.lstrip("+~").split("=", 1)[0]
+        if key in ("recipe",) or key.startswith(_NAME_SKIP):
+            continue
+        parts.append(o.lstrip("+~"))
+    parts.append(f"seed={cfg.seed}")
+    return " ".join(parts)
+
+
+def git_commit() -> str | None:
+    try:
+        out = subprocess.run(["git", "rev-parse", "HEAD"], cwd=PROJECT_ROOT, capture_output=True,
+                             text=True, timeout=5)
+        return out.stdout.strip() or None if out.returncode == 0 else None
+    except (OSError, subprocess.SubprocessError):
+        return None
+
+
+def standard_tags(fingerprint: str) -> dict[str, str]:
+    tags = {"wsad.version": __version__, "wsad.store_fingerprint": fingerprint}
+    commit = git_commit()
+    if commit:
+        tags["mlflow.source.git.commit"] = commit
+    return tags
+
+
+def log_artifacts(local_dir: Path) -> None:
+    import mlflow
+
+    for sub in sorted(p for p in Path(local_dir).iterdir() if p.is_dir()):
+        retry(lambda: mlflow.log_artifacts(str(sub), artifact_path=sub.name))
+
+
+def resolve_uri(uri: str) -> str:
+    """Relative sqlite paths are taken from the directory the user ran in
+    (Hydra may change the working directory)."""
+    if uri.startswith("sqlite:///") and not uri.startswith("sqlite:////"):
+        base = os.environ.get("WSAD_LAUNCH_DIR") or os.getcwd()
+        return "sqlite:///" + str(Path(base) / uri[len("sqlite:///"):])
+    return uri
+
+
+class Run:
+    """An active MLflow run (thin: the id and the client calls we use)."""
+
+    def __init__(self, run_id: str):
+        self.run_id = run_id
+
+
+def start_run(cfg: DictConfig, overrides: list[str] | None, fingerprint: str) -> Run:
+    import mlflow
+
+    uri = resolve_uri(str(cfg.tracking.uri))
+    exp_id = prepare(uri, str(cfg.tracking.experiment))
+    mlflow.set_tracking_uri(uri)
+    params = flatten(cfg)
+    params.update({"seed": str(cfg.seed), "data.fingerprint": fingerprint,
+                   "wsad.version": __version__})
+    active = retry(lambda: mlflow.start_run(experiment_id=exp_id, run_name=run_name(cfg, overrides),
+                                            tags=standard_tags(fingerprint)))
+    items = list(params.items())
+    for i in range(0, len(items), 90):  # MLflow caps a batch at 100 params
+        retry(lambda chunk=dict(items[i:i + 90]): mlflow.log_params(chunk))
+    return Run(active.info.run_id)
+
+
+def log_metrics(run: Run | None, values: dict[str, float], step: int) -> None:
+    if run is None:
+        return
+    import mlflow
+
+    clean = {k: float(v) for k, v in values.items()
+             if isinstance(v, (int, float)) and v == v}
+    retry(lambda: mlflow.log_metrics(clean, step=step))
+
+
+def finish(run: Run | None, out_dir: Path, status: str = "FINISHED") -> None:
+    if run is None:
+        return
+    import mlflow
+
+    log_artifacts(out_dir)
+    retry(lambda: mlflow.end_run(status=status))

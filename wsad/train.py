@@ -1,0 +1,231 @@
+"""The training loop, top to bottom. Everything is built from the config; a
+new bag construction, head or term plugs in through its YAML, not here."""
+from __future__ import annotations
+
+import math
+import random
+import tempfile
+import warnings
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+import torch
+from hydra.utils import instantiate
+from omegaconf import DictConfig, OmegaConf
+from tqdm.auto import tqdm
+
+from . import tracking
+from .bags.base import BagLoader, Standardizer
+from .errors import WsadError
+from .evaluate import METRICS, compute_metrics, frame_table, grouped_bootstrap, roc_auc
+from .model_io import build_head, save_checkpoint, score_videos, video_scores
+from .plots import roc_plot, timeline_plot
+from .pooling import pool
+from .store import FeatureStore, check_store, store_fingerprint
+from .terms.base import TermInputs
+
+
+def seed_everything(seed: int, threads: int) -> None:
+    random.seed(seed)
+    np.random.seed(seed)
+    torch.manual_seed(seed)
+    torch.use_deterministic_algorithms(True)
+    torch.set_num_threads(max(1, int(threads)))
+
+
+def weak_validation_split(store: FeatureStore, share: float) -> tuple[list[str], list[str]]:
+    """Hold out whole train groups (cameras) for weak validation: video AUC on
+    video labels, never test labels. Fixed by the data, not the seed, so every
+    variant and seed is selected on the same videos."""
+    train = store.videos("train")
+    if share <= 0:
+        return train, []
+    m = store.manifest[store.manifest["split"] == "train"]
+    groups = sorted(m["group"].unique())
+    rng = np.random.default_rng(12345)
+    held: list[str] = []
+    for g in rng.permutation(groups):
+        if len(held) >= share * len(groups):
+            break
+        held.append(g)
+    val = list(m[m["group"].isin(held)]["video"])
+    fit = list(m[~m["group"].isin(held)]["video"])
+    labels_val = {store.label(v) for v in val}
+    labels_fit = {store.label(v) for v in fit}
+    if labels_val != {0, 1} or labels_fit != {0, 1}:
+        # too few groups to hold some out by camera: hold out videos instead, with a warning
+        warnings.warn("weak validation could not be split by group with both labels on each "
+                      "side; holding out videos instead (cameras may then be shared)", stacklevel=2)
+        idx = rng.permutation(len(train))
+        n = max(2, int(round(share * len(train))))
+        val = [train[i] for i in idx[:n]]
+        fit = [train[i] for i in idx[n:]]
+    return fit, val
+
+
+def build_terms(cfg: DictConfig) -> dict[str, tuple[float, object]]:
+    terms = {}
+    for name, weight in cfg.objective.items():
+        weight = float(weight)
+        if weight < 0:
+            raise WsadError(f"objective.{name}={weight}: weights must be >= 0 (0 disables a term)")
+        if weight == 0:
+            continue
+        if name not in cfg.terms:
+            raise WsadError(f"objective.{name} has no settings in terms/; known terms: "
+                            f"{', '.join(cfg.terms.keys())}")
+        terms[name] = (weight, instantiate(cfg.terms[name]))
+    if not terms:
+        raise WsadError("every objective weight is 0; enable a term, e.g. objective.bag_bce=1")
+    return terms
+
+
+def train(cfg: DictConfig, overrides: list[str] | None = None) -> float:
+    """Train, evaluate and log one run; returns the weak-validation video AUC
+    of the selected epoch (what a sweeper should optimise; never a test metric)."""
+    # -- data ---------------------------------------------------------------------------
+    seed_everything(int(cfg.seed), cfg.trainer.threads)
+    errors = [p for p in check_store(cfg.data.root) if p.severity == "error"]
+    if errors:
+        raise WsadError(f"the store {cfg.data.root} has {len(errors)} problem(s), first: {errors[0]}; "
+                        f"run wsad-check {cfg.data.root}")
+    store = FeatureStore(cfg.data.root, crops=cfg.data.crops)
+    fit_videos, val_videos = weak_validation_split(store, float(cfg.trainer.weak_val_share))
+    test_videos = store.videos("test")
+    if cfg.trainer.select not in ("last", "weak_val"):
+        raise WsadError(f"trainer.select={cfg.trainer.select!r}; use last or weak_val")
+    if cfg.trainer.select == "weak_val" and not val_videos:
+        raise WsadError("trainer.select=weak_val needs trainer.weak_val_share > 0")
+    std = Standardizer.fit(store, fit_videos) if cfg.data.standardize else Standardizer()
+
+    # -- components ---------------------------------------------------------------------
+    bag_cfg = OmegaConf.to_container(cfg.bags, resolve=True)
+    pooling, k = bag_cfg.pop("pooling"), bag_cfg.pop("k", None)
+    bags = instantiate(bag_cfg)
+    items = bags.items(store, fit_videos)
+    loader = BagLoader(store, bags, std, cache_mb=float(cfg.data.cache_mb))
+    model = build_head(cfg, store.dim)
+    terms = build_terms(cfg)
+    optimizer = instantiate(cfg.optim, params=model.parameters())
+    epochs = int(cfg.trainer.epochs)
+    if epochs < 1:
+        raise WsadError(f"trainer.epochs={epochs}; train for at least 1 epoch")
+    schedule = None
+    if cfg.trainer.schedule == "cosine":
+        schedule = torch.optim.lr_scheduler.CosineAnnealingLR(optimizer, T_max=epochs)
+    elif cfg.trainer.schedule is not None:
+        raise WsadError(f"trainer.schedule={cfg.trainer.schedule!r}; use null or cosine")
+
+    out_dir = Path(cfg.trainer.out_dir or _hydra_dir() or tempfile.mkdtemp(prefix="wsad-run-"))
+    run = _start_run(cfg, overrides, store)
+
+    # -- epochs -------------------------------------------------------------------------
+    eval_cache: dict = {}  # prepared val/test arrays, reused every epoch
+    best = (-math.inf, None, 0)  # (weak-val AUC, state dict, epoch)
+    history = []
+    bar = tqdm(range(1, epochs + 1), desc=f"train {cfg.get('recipe_name', '')}".strip(),
+               unit="epoch", disable=not cfg.trainer.progress)
+    for epoch in bar:
+        model.train()
+        sums = {name: 0.0 for name in terms}
+        total, n_batches = 0.0, 0
+        for batch in loader.epoch(items, epoch, int(cfg.seed)):
+            out = model(batch.x, batch.mask)
+            bag_scores = pool(pooling, out, batch.mask, k)
+            inp = TermInputs(out.scores, out.logits, batch.mask, batch.y, bag_scores,
+                             out.embeddings, batch.pairs)
+            loss = 0.0
+            for name, (w, term) in terms.items():
+                value = term(inp)
+                sums[name] += float(value.detach())
+                loss = loss + w * value
+            optimizer.zero_grad(set_to_none=True)
+            loss.backward()
+            if cfg.trainer.grad_clip:
+                torch.nn.utils.clip_grad_norm_(model.parameters(), float(cfg.trainer.grad_clip))
+            optimizer.step()
+            total += float(loss.detach())
+            n_batches += 1
+        if schedule is not None:
+            schedule.step()
+        row = {"train_loss": total / max(1, n_batches),
+               **{f"term/{n}": s / max(1, n_batches) for n, s in sums.items()}}
+        if val_videos:
+            vs = score_videos(model, store, val_videos, std, bags.chunks, cache=eval_cache)
+            labels = [store.label(v) for v in val_videos]
+            row["weak_val_video_auc"] = roc_auc(labels, [s.max() for s in vs.values()],
+                                                "weak validation video AUC")
+        if epoch % int(cfg.trainer.eval_every) == 0 or epoch == epochs:
+            row.update(_quiet_metrics(video_scores(store, score_videos(
+                model, store, test_videos, std, bags.chunks, cache=eval_cache))))
+        history.append({"epoch": epoch, **row})
+        tracking.log_metrics(run, row, step=epoch)
+        chosen = row.get("weak_val_video_auc", -math.inf) if cfg.trainer.select == "weak_val" else epoch
+        if chosen >= best[0] or cfg.trainer.select == "last":
+            best = (chosen, {k: v.clone() for k, v in model.state_dict().items()}, epoch)
+        bar.set_postfix(loss=f"{row['train_loss']:.4f}",
+                        val=f"{row.get('weak_val_video_auc', float('nan')):.3f}",
+                        auc=f"{row.get('frame_auc', float('nan')):.3f}")
+
+    # -- the selected model: final metrics and artifacts ---------------------------------
+    model.load_state_dict(best[1])
+    test = video_scores(store, score_videos(model, store, test_videos, std, bags.chunks))
+    final = _quiet_metrics(test)
+    if int(cfg.trainer.bootstrap) > 0 and "frame_auc" in final:
+        final.update(grouped_bootstrap(test, int(cfg.trainer.bootstrap), seed=int(cfg.seed)))
+    final["selected_epoch"] = best[2]
+    selected = next(h for h in history if h["epoch"] == best[2])
+    if "weak_val_video_auc" in selected:
+        final["weak_val_video_auc"] = selected["weak_val_video_auc"]
+    tracking.log_metrics(run, final, step=epochs)
+    _export(out_dir, cfg, model, std, store, test, history)
+    tracking.finish(run, out_dir)
+    result = {**final, "out_dir": str(out_dir), "run_id": run.run_id if run else None}
+    train.last_result = result  # for callers that want more than the returned number
+    return float(final.get("weak_val_video_auc", -history[-1]["train_loss"]))
+
+
+def _quiet_metrics(videos) -> dict[str, float]:
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore")
+        return compute_metrics(videos)
+
+
+def _hydra_dir() -> str | None:
+    try:
+        from hydra.core.hydra_config import HydraConfig
+
+        return HydraConfig.get().runtime.output_dir
+    except Exception:  # noqa: BLE001 - not running under Hydra
+        return None
+
+
+def _start_run(cfg: DictConfig, overrides, store: FeatureStore):
+    if not cfg.tracking.enabled:
+        return None
+    return tracking.start_run(cfg, overrides, store_fingerprint(store.root))
+
+
+def _export(out_dir: Path, cfg, model, std, store, test, history) -> None:
+    """The DESIGN artifacts: scores parquet, ROC and timeline plots, resolved
+    config, checkpoint; plus the learning curve table."""
+    for sub in ("scores", "plots", "config", "model"):
+        (out_dir / sub).mkdir(parents=True, exist_ok=True)
+    table = frame_table(test)
+    tmp = out_dir / "scores" / "test_scores.parquet.tmp"
+    table.to_parquet(tmp, index=False)
+    tmp.replace(out_dir / "scores" / "test_scores.parquet")
+    pd.DataFrame(history).to_csv(out_dir / "scores" / "history.csv", index=False)
+    name = str(cfg.get("recipe_name", "model"))
+    lab = table[table["label"] >= 0]
+    if lab["label"].nunique() == 2:
+        roc_plot({name: (lab["label"].to_numpy(), lab["score"].to_numpy())},
+                 out_dir / "plots" / "roc.png", title=f"frame-level ROC, {name}")
+    timeline_plot(test, out_dir / "plots" / "timelines.png", title=f"test videos, {name}")
+    (out_dir / "config" / "resolved.yaml").write_text(OmegaConf.to_yaml(cfg, resolve=True))
+    save_checkpoint(out_dir / "model" / "checkpoint.pt", model, cfg, std, store.dim)
+
+
+train.last_result = {}
+__all__ = ["train", "METRICS"]
