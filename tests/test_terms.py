@@ -1,0 +1,234 @@
+"""Objective terms, pooling and heads against outside references
+(PyTorch's own losses, NumPy loops, scikit-learn's KMeans, the paper's formula)."""
+from __future__ import annotations
+
+import numpy as np
+import pytest
+import torch
+import torch.nn.functional as F
+from sklearn.cluster import KMeans
+
+from wsad.heads import GatedAttentionHead, MLPHead, TemporalConvHead
+from wsad.heads.base import HeadOutput
+from wsad.pooling import pool, topk_mean
+from wsad.terms import (BagBCE, ClusterDistance, RankingHinge, Smoothness, Sparsity, TermInputs,
+                        VideoBCE, two_means)
+
+
+def _batch(seed=0, b=6, t=20, h=5, pad=True):
+    g = torch.Generator().manual_seed(seed)
+    lengths = torch.randint(5, t + 1, (b,), generator=g) if pad else torch.full((b,), t)
+    mask = torch.arange(t)[None, :] < lengths[:, None]
+    logits = torch.randn(b, t, generator=g, dtype=torch.float64)
+    emb = torch.randn(b, t, h, generator=g, dtype=torch.float64)
+    y = torch.tensor([1.0, 0.0] * (b // 2), dtype=torch.float64)
+    scores = torch.sigmoid(logits)
+    bag = topk_mean(scores, mask, None)
+    pairs = torch.stack([torch.arange(0, b, 2), torch.arange(1, b, 2)], 1)
+    return TermInputs(scores, logits, mask, y, bag, emb, pairs)
+
+
+def _padded_copy(inp: TermInputs, extra=7, fill=5.0) -> TermInputs:
+    """The same bags with extra padding holding garbage values."""
+    b, t = inp.mask.shape
+
+    def grow(x, value):
+        pad = torch.full((b, extra) + tuple(x.shape[2:]), value, dtype=x.dtype)
+        return torch.cat([x, pad], dim=1)
+
+    mask = torch.cat([inp.mask, torch.zeros(b, extra, dtype=torch.bool)], 1)
+    logits = grow(inp.logits, fill).masked_fill(~mask, fill)
+    logits = torch.where(mask, grow(inp.logits, 0.0), torch.full_like(logits, fill))
+    emb = torch.where(mask[..., None], grow(inp.embeddings, 0.0), torch.full_like(grow(inp.embeddings, 0.0), fill))
+    return TermInputs(torch.sigmoid(logits), logits, mask, inp.y, inp.bag_scores, emb, inp.pairs)
+
+
+def test_ranking_hinge_matches_margin_ranking_loss():
+    # Reference: torch.nn.MarginRankingLoss(margin=1) on the bag maxima (Sultani et al. 2018).
+    inp = _batch()
+    top = np.array([inp.scores[i][inp.mask[i]].max().item() for i in range(6)])
+    ref = torch.nn.MarginRankingLoss(margin=1.0)(torch.tensor(top[0::2]), torch.tensor(top[1::2]),
+                                                 torch.ones(3))
+    assert RankingHinge(1.0)(inp).item() == pytest.approx(ref.item(), abs=1e-12)
+    # unpaired batches compare every anomalous bag with every normal bag
+    inp.pairs = None
+    a, n = np.meshgrid(top[0::2], top[1::2], indexing="ij")
+    ref_all = torch.nn.MarginRankingLoss(margin=1.0)(torch.tensor(a.ravel()), torch.tensor(n.ravel()),
+                                                     torch.ones(9))
+    assert RankingHinge(1.0)(inp).item() == pytest.approx(ref_all.item(), abs=1e-12)
+
+
+def test_smoothness_and_sparsity_match_numpy_loops():
+    # Reference: the formulas written as explicit NumPy loops.
+    inp = _batch(1)
+    s, m, y = inp.scores.numpy(), inp.mask.numpy(), inp.y.numpy()
+    smooth_all, smooth_anom, sparse_sum, sparse_mean = [], [], [], []
+    for i in range(len(s)):
+        t = int(m[i].sum())
+        d = sum((s[i, j] - s[i, j + 1]) ** 2 for j in range(t - 1))
+        smooth_all.append(d)
+        if y[i] == 1:
+            smooth_anom.append(d)
+            sparse_sum.append(sum(s[i, j] for j in range(t)))
+            sparse_mean.append(sparse_sum[-1] / t)
+    assert Smoothness("all")(inp).item() == pytest.approx(np.mean(smooth_all), abs=1e-12)
+    assert Smoothness("anomalous")(inp).item() == pytest.approx(np.mean(smooth_anom), abs=1e-12)
+    assert Sparsity()(inp).item() == pytest.approx(np.mean(sparse_sum), abs=1e-12)
+    assert Sparsity(per_segment=True)(inp).item() == pytest.approx(np.mean(sparse_mean), abs=1e-12)
+
+
+def test_bce_terms_match_torch_functional():
+    # Reference: torch.nn.functional.binary_cross_entropy(_with_logits).
+    inp = _batch(2)
+    target = inp.y[:, None].expand_as(inp.logits)
+    ref = F.binary_cross_entropy(inp.scores[inp.mask], target[inp.mask])
+    assert VideoBCE()(inp).item() == pytest.approx(ref.item(), abs=1e-9)
+    assert BagBCE()(inp).item() == pytest.approx(F.binary_cross_entropy(inp.bag_scores, inp.y).item(),
+                                                 abs=1e-9)
+
+
+@pytest.mark.parametrize("k", [None, 1, 3, 50])
+def test_topk_pooling_matches_numpy_sort(k):
+    # Reference: numpy.sort of each bag's real scores; default k = floor(T/16) + 1.
+    inp = _batch(3, t=60)
+    got = topk_mean(inp.scores, inp.mask, k).numpy()
+    for i in range(len(got)):
+        real = np.sort(inp.scores[i][inp.mask[i]].numpy())[::-1]
+        kk = len(real) // 16 + 1 if k is None else min(k, len(real))
+        assert got[i] == pytest.approx(real[:kk].mean(), abs=1e-12)
+
+
+def test_padding_never_changes_terms_or_pooling():
+    inp = _batch(4)
+    big = _padded_copy(inp)
+    out_small = HeadOutput(inp.logits, inp.embeddings)
+    out_big = HeadOutput(big.logits, big.embeddings)
+    for kind in ("max", "topk", "mean"):
+        torch.testing.assert_close(pool(kind, out_small, inp.mask), pool(kind, out_big, big.mask))
+    torch.manual_seed(0)
+    for term in (VideoBCE(), BagBCE(), RankingHinge(), Smoothness("all"), Sparsity(),
+                 Sparsity(per_segment=True), ClusterDistance(margin=2.0, n_init=1)):
+        assert term(inp).item() == pytest.approx(term(big).item(), abs=1e-10), type(term).__name__
+
+
+def test_heads_ignore_padding():
+    torch.manual_seed(0)
+    x = torch.randn(3, 12, 8)
+    mask = torch.arange(12)[None] < torch.tensor([12, 7, 4])[:, None]
+    x_garbage = torch.where(mask[..., None], x, torch.full_like(x, 9.0))
+    for head in (MLPHead(8, [16, 4], 0.0), GatedAttentionHead(8, [16, 4], 6, 0.0),
+                 TemporalConvHead(8, [16, 4], 3, 0.0)):
+        head.eval()
+        a, b = head(x, mask), head(x_garbage, mask)
+        torch.testing.assert_close(a.logits[mask], b.logits[mask])
+        assert a.embeddings.shape == (3, 12, 16)
+        if a.bag_logits is not None:
+            torch.testing.assert_close(a.bag_logits, b.bag_logits)
+
+
+def test_gated_attention_matches_paper_formula():
+    # Reference: Ilse et al. (ICML 2018), eq. 9: a_k = softmax_k(w^T (tanh(V h_k) * sigm(U h_k))),
+    # z = sum_k a_k h_k; written out here with plain matrix products.
+    torch.manual_seed(1)
+    head = GatedAttentionHead(6, [10, 4], 5, 0.0).eval()
+    x = torch.randn(1, 9, 6)
+    mask = torch.ones(1, 9, dtype=torch.bool)
+    out = head(x, mask)
+    W, bw = head.embed[0].weight, head.embed[0].bias
+    h = torch.relu(x[0] @ W.T + bw)
+    e = (torch.tanh(h @ head.V.weight.T + head.V.bias) *
+         torch.sigmoid(h @ head.U.weight.T + head.U.bias)) @ head.w.weight.T
+    a = torch.exp(e[:, 0]) / torch.exp(e[:, 0]).sum()
+    torch.testing.assert_close(out.attention[0], a)
+    z = (a[:, None] * h).sum(0)
+    torch.testing.assert_close(out.bag_logits[0], head.score(z).squeeze())
+    assert pool("attention", out, mask).item() == pytest.approx(torch.sigmoid(head.score(z)).item(), abs=1e-6)
+
+
+def test_two_means_same_partition_as_sklearn_on_separated_data():
+    # Reference: sklearn.cluster.KMeans(n_clusters=2).
+    rng = np.random.default_rng(0)
+    bags, masks, refs = [], [], []
+    for i in range(5):
+        n0, n1 = 30 + i, 12 + 2 * i
+        x = np.r_[rng.normal(0, 1, (n0, 4)), rng.normal(6, 1, (n1, 4))]
+        x = x[rng.permutation(len(x))]
+        refs.append(KMeans(2, n_init=10, random_state=0).fit(x).labels_)
+        pad = np.zeros((60 - len(x), 4))
+        bags.append(np.r_[x, pad])
+        masks.append(np.arange(60) < len(x))
+    assign, _ = two_means(torch.tensor(np.array(bags)), torch.tensor(np.array(masks)))
+    for i, ref in enumerate(refs):
+        got = assign[i][torch.tensor(masks[i])].numpy().astype(int)
+        assert (got == ref).all() or (got == 1 - ref).all()
+
+
+@pytest.mark.parametrize("seed", range(6))
+def test_two_means_inertia_close_to_sklearn_best(seed):
+    # Reference: sklearn.cluster.KMeans(n_clusters=2, n_init=10).inertia_ on random data
+    # (two overlapping Gaussian blobs at random places).
+    rng = np.random.default_rng(seed)
+    x = np.r_[rng.normal(0, 1, (90, 6)), rng.normal(rng.normal(0, 1.5, 6), 1, (60, 6))]
+    torch.manual_seed(seed)
+    _, inertia = two_means(torch.tensor(x)[None], torch.ones(1, len(x), dtype=torch.bool),
+                           n_init=16, n_iter=100)
+    ref = KMeans(2, n_init=10, random_state=seed).fit(x).inertia_
+    assert inertia.item() <= ref * (1 + 1e-4)
+
+
+def test_cluster_distance_gradients_and_direction():
+    torch.manual_seed(0)
+    emb = torch.randn(4, 30, 3, requires_grad=True)
+    mask = torch.ones(4, 30, dtype=torch.bool)
+    y = torch.tensor([1.0, 1.0, 0.0, 0.0])
+    inp = TermInputs(torch.rand(4, 30), torch.zeros(4, 30), mask, y, torch.rand(4), emb, None)
+    torch.manual_seed(5)
+    loss = ClusterDistance(margin=10.0)(inp)
+    loss.backward()
+    assert emb.grad.abs().sum() > 0
+    # normal bags: the loss is the distance itself; anomalous: hinge of the margin
+    torch.manual_seed(5)
+    assign, _ = two_means(emb.detach(), mask, 2, 20)
+    d = []
+    for i in range(4):
+        a = assign[i]
+        d.append(torch.linalg.norm(emb[i][a].mean(0) - emb[i][~a].mean(0)).item())
+    ref = np.mean([max(0, 10 - d[0]), max(0, 10 - d[1]), d[2], d[3]])
+    assert loss.item() == pytest.approx(ref, rel=1e-5)
+
+
+class CountTorchCalls(torch.overrides.TorchFunctionMode):
+    """Counts torch function calls (a per-bag Python loop would scale them with B)."""
+
+    def __init__(self):
+        super().__init__()
+        self.calls = 0
+
+    def __torch_function__(self, func, types, args=(), kwargs=None):
+        self.calls += 1
+        return func(*args, **(kwargs or {}))
+
+
+def test_cluster_term_has_no_python_loop_over_bags():
+    counts = []
+    for b in (8, 64):
+        torch.manual_seed(0)
+        emb = torch.randn(b, 40, 16, requires_grad=True)
+        mask = torch.arange(40)[None] < torch.randint(10, 41, (b,))[:, None]
+        inp = TermInputs(torch.rand(b, 40), torch.zeros(b, 40), mask, (torch.arange(b) % 2).float(),
+                         torch.rand(b), emb, None)
+        with CountTorchCalls() as mode:
+            ClusterDistance(n_init=3, n_iter=1)(inp).backward()
+        counts.append(mode.calls)
+    assert counts[0] == counts[1]
+
+
+def test_batched_two_means_equals_one_bag_at_a_time():
+    torch.manual_seed(0)
+    e = torch.randn(5, 25, 4, dtype=torch.float64)
+    mask = torch.arange(25)[None] < torch.tensor([25, 20, 9, 14, 3])[:, None]
+    together, inertia = two_means(e, mask, n_init=1, n_iter=50)
+    for i in range(5):
+        one, one_inertia = two_means(e[i:i + 1], mask[i:i + 1], n_init=1, n_iter=50)
+        assert torch.equal(one[0], together[i])
+        assert one_inertia.item() == pytest.approx(inertia[i].item())

@@ -1,0 +1,172 @@
+"""The training loop end to end: recipes learn, logs agree with the exported
+scores (checked with scikit-learn), commands behave."""
+from __future__ import annotations
+
+import subprocess
+import sys
+
+import mlflow
+import numpy as np
+import pandas as pd
+import pytest
+import torch
+from sklearn.metrics import roc_auc_score
+
+from conftest import make_store
+from wsad.config import compose_config
+from wsad.errors import WsadError
+from wsad.train import train
+
+# small budgets that still learn on the default scenario
+BUDGET = {"topk": ["trainer.epochs=25"], "windows": ["trainer.epochs=15"],
+          "mil_ranking": ["trainer.epochs=120"]}
+
+
+def run(store, tmp_path, recipe, extra=(), tracking=True):
+    uri = f"sqlite:///{tmp_path}/mlruns.db"
+    cfg = compose_config([f"data.root={store}", f"recipe={recipe}", "trainer.progress=false",
+                          f"trainer.out_dir={tmp_path}/out_{recipe}", f"tracking.uri={uri}",
+                          f"tracking.enabled={str(tracking).lower()}", "trainer.bootstrap=200",
+                          *BUDGET.get(recipe, []), *extra])
+    value = train(cfg)
+    return value, dict(train.last_result), uri
+
+
+@pytest.mark.parametrize("recipe", ["topk", "windows", "mil_ranking"])
+def test_recipe_learns_and_logs_match_parquet(demo_store, tmp_path, recipe):
+    value, res, uri = run(demo_store, tmp_path, recipe)
+    # clearly beats chance: the whole grouped-bootstrap interval is above 0.5
+    assert res["frame_auc_lo"] > 0.55, res
+    assert res["frame_auc"] < 0.99  # the default scenario is not saturated
+    client = mlflow.MlflowClient(uri)
+    r = client.get_run(res["run_id"])
+    assert r.info.status == "FINISHED"
+    for name in ("frame_auc", "frame_ap", "anomalous_video_auc", "false_alarm_rate", "video_auc",
+                 "train_loss"):
+        assert name in r.data.metrics
+    assert any(k.startswith("term/") for k in r.data.metrics)
+    assert len(client.get_metric_history(res["run_id"], "train_loss")) == int(
+        r.data.params["trainer.epochs"])
+    # the logged frame_auc is scikit-learn's AUC on the exported parquet (reference: sklearn)
+    local = client.download_artifacts(res["run_id"], "scores/test_scores.parquet", str(tmp_path))
+    table = pd.read_parquet(local)
+    assert list(table.columns) == ["video", "frame", "score", "label", "group"]
+    lab = table[table.label >= 0]
+    assert r.data.metrics["frame_auc"] == pytest.approx(roc_auc_score(lab.label, lab.score), abs=1e-12)
+    arts = {a.path for a in client.list_artifacts(res["run_id"], "plots")}
+    assert {"plots/roc.png", "plots/timelines.png"} <= arts
+    assert {a.path for a in client.list_artifacts(res["run_id"], "model")} == {"model/checkpoint.pt"}
+    assert r.data.params["seed"] == "0" and "data.fingerprint" in r.data.params
+    assert value == pytest.approx(r.data.metrics["weak_val_video_auc"])
+
+
+def test_same_seed_same_scores_other_seed_differs(small_store, tmp_path):
+    a = run(small_store, tmp_path / "a", "topk", ["trainer.epochs=2"], tracking=False)[1]
+    b = run(small_store, tmp_path / "b", "topk", ["trainer.epochs=2"], tracking=False)[1]
+    c = run(small_store, tmp_path / "c", "topk", ["trainer.epochs=2", "seed=1"], tracking=False)[1]
+    sa, sb, sc = (pd.read_parquet(f"{r['out_dir']}/scores/test_scores.parquet").score for r in (a, b, c))
+    assert sa.equals(sb)
+    assert not sa.equals(sc)
+
+
+def test_any_part_added_by_override(small_store, tmp_path):
+    _, res, _ = run(small_store, tmp_path, "windows",
+                    ["trainer.epochs=1", "objective.cluster_distance=1e-3", "head=gated_attention",
+                     "bags.order=sequential"], tracking=False)
+    h = pd.read_csv(f"{res['out_dir']}/scores/history.csv")
+    assert "term/cluster_distance" in h.columns and h["term/cluster_distance"].iloc[0] > 0
+    cfg = compose_config([f"data.root={small_store}", "recipe=mil_ranking", "head=temporal",
+                          "objective.bag_bce=0.5"])
+    assert cfg.head._target_.endswith("TemporalConvHead") and cfg.bags.chunks == 32
+    assert cfg.objective.ranking_hinge == 1.0 and cfg.objective.bag_bce == 0.5
+
+
+def test_each_crop_as_its_own_bag(tmp_path):
+    st = make_store(tmp_path / "mc", overrides=["crops=3"])
+    _, res, _ = run(st, tmp_path, "topk", ["trainer.epochs=1", "data.crops=each"], tracking=False)
+    assert 0 <= res["frame_auc"] <= 1
+
+
+class CountTorchCalls(torch.overrides.TorchFunctionMode):
+    def __init__(self):
+        super().__init__()
+        self.calls = 0
+
+    def __torch_function__(self, func, types, args=(), kwargs=None):
+        self.calls += 1
+        return func(*args, **(kwargs or {}))
+
+
+@pytest.mark.parametrize("recipe", ["topk", "windows", "mil_ranking"])
+def test_training_step_has_no_per_video_loop(small_store, recipe):
+    """One step's torch calls do not grow with the number of bags in the batch."""
+    from hydra.utils import instantiate
+    from omegaconf import OmegaConf
+
+    from wsad.bags import BagLoader, Standardizer
+    from wsad.model_io import build_head
+    from wsad.pooling import pool
+    from wsad.store import FeatureStore
+    from wsad.terms import TermInputs
+    from wsad.train import build_terms
+
+    cfg = compose_config([f"data.root={small_store}", f"recipe={recipe}",
+                          "objective.cluster_distance=1e-3", "terms.cluster_distance.n_iter=1"])
+    store = FeatureStore(small_store)
+    bag_cfg = OmegaConf.to_container(cfg.bags)
+    pooling, k = bag_cfg.pop("pooling"), bag_cfg.pop("k")
+    bags = instantiate(bag_cfg)
+    loader = BagLoader(store, bags, Standardizer())
+    items = bags.items(store, store.videos("train"))
+    model = build_head(cfg, store.dim)
+    terms = build_terms(cfg)
+    counts = []
+    for n in (2, 6):
+        pos = [it for it in items if it.label == 1][:n]
+        neg = [it for it in items if it.label == 0][:n]
+        batch = loader.collate(pos + neg)
+        if batch.pairs is not None:
+            batch.pairs = torch.stack([torch.arange(n), torch.arange(n, 2 * n)], 1)
+        torch.manual_seed(0)
+        with CountTorchCalls() as mode:
+            out = model(batch.x, batch.mask)
+            bag = pool(pooling, out, batch.mask, k)
+            inp = TermInputs(out.scores, out.logits, batch.mask, batch.y, bag, out.embeddings, batch.pairs)
+            loss = sum(w * t(inp) for w, t in terms.values())
+            loss.backward()
+        counts.append(mode.calls)
+    assert counts[0] == counts[1]
+
+
+def _cli(tmp_path, *args):
+    code = "import sys; from wsad.cli.{0} import main; sys.argv=['x']+sys.argv[1:]; main()".format(args[0])
+    return subprocess.run([sys.executable, "-c", code, *args[1:]], capture_output=True, text=True,
+                          cwd=tmp_path, timeout=300)
+
+
+def test_console_train_and_score(small_store, tmp_path):
+    res = _cli(tmp_path, "train", f"data.root={small_store}", "recipe=topk", "trainer.epochs=2",
+               "trainer.progress=false", f"hydra.run.dir={tmp_path}/run")
+    assert res.returncode == 0, res.stderr[-2000:]
+    assert "frame_auc" in res.stdout and (tmp_path / "mlruns.db").exists()
+    exported = pd.read_parquet(tmp_path / "run" / "scores" / "test_scores.parquet")
+    res = _cli(tmp_path, "score", f"checkpoint={tmp_path}/run/model/checkpoint.pt",
+               f"data.root={small_store}", f"out={tmp_path}/again.parquet")
+    assert res.returncode == 0, res.stderr
+    again = pd.read_parquet(tmp_path / "again.parquet")
+    pd.testing.assert_frame_equal(exported, again)
+    res = _cli(tmp_path, "score", f"checkpoint={tmp_path}/run/model/checkpoint.pt",
+               f"data.root={small_store}", f"out={tmp_path}/again.parquet")
+    assert res.returncode == 2 and "exists" in res.stderr
+
+
+def test_bad_training_config_is_one_clear_line(small_store, tmp_path):
+    res = _cli(tmp_path, "train", f"data.root={small_store}", "head=transformer")
+    assert res.returncode != 0 and "Traceback" not in res.stderr
+    assert "gated_attention" in res.stderr  # lists the known heads
+    res = _cli(tmp_path, "train", f"data.root={small_store}", "objective.bag_bce=-1",
+               "tracking.enabled=false")
+    assert res.returncode == 2 and "must be >= 0" in res.stderr and "Traceback" not in res.stderr
+    with pytest.raises(WsadError, match="every objective weight is 0"):
+        train(compose_config([f"data.root={small_store}", "objective.bag_bce=0",
+                              "tracking.enabled=false"]))
