@@ -140,10 +140,13 @@ def log_metrics(run: Run | None, values: dict[str, float], step: int) -> None:
     retry(lambda: mlflow.log_metrics(clean, step=step))
 
 
-def finish(run: Run | None, out_dir: Path, status: str = "FINISHED") -> None:
+def finish(run: Run | None, out_dir: Path | None, status: str = "FINISHED") -> None:
+    """Upload the artifacts (if any) and close the run with ``status``."""
     if run is None:
         return
     import mlflow
 
-    log_artifacts(out_dir)
-    retry(lambda: mlflow.end_run(status=status))
+    if out_dir is not None:
+        log_artifacts(out_dir)
+    if mlflow.active_run() is not None:
+        retry(lambda: mlflow.end_run(status=status))

@@ -3,9 +3,11 @@ new bag construction, head or term plugs in through its YAML, not here."""
 from __future__ import annotations
 
 import math
+import os
 import random
 import tempfile
 import warnings
+from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
@@ -26,12 +28,26 @@ from .store import FeatureStore, check_store, store_fingerprint
 from .terms.base import TermInputs
 
 
-def seed_everything(seed: int, threads: int) -> None:
+def seed_everything(seed: int, threads: int | None) -> None:
     random.seed(seed)
     np.random.seed(seed)
     torch.manual_seed(seed)
     torch.use_deterministic_algorithms(True)
+    if threads is None:  # one thread per job when a sweep runs jobs side by side
+        threads = 1 if _in_multirun() else (os.cpu_count() or 1)
     torch.set_num_threads(max(1, int(threads)))
+
+
+def apply_ablation(cfg: DictConfig) -> None:
+    """ablation.toggle=<term>: off if the recipe uses it, on at ablation.on_weight if not."""
+    name = cfg.get("ablation", {}).get("toggle", "none")
+    if name in (None, "none"):
+        return
+    if name not in cfg.objective:
+        raise WsadError(f"ablation.toggle={name!r} is not a term; known: none, "
+                        f"{', '.join(cfg.objective.keys())}")
+    on = float(cfg.ablation.on_weight.get(name, 1.0))
+    cfg.objective[name] = 0.0 if float(cfg.objective[name]) > 0 else on
 
 
 def weak_validation_split(store: FeatureStore, share: float) -> tuple[list[str], list[str]]:
@@ -81,109 +97,145 @@ def build_terms(cfg: DictConfig) -> dict[str, tuple[float, object]]:
     return terms
 
 
-def train(cfg: DictConfig, overrides: list[str] | None = None) -> float:
-    """Train, evaluate and log one run; returns the weak-validation video AUC
-    of the selected epoch (what a sweeper should optimise; never a test metric)."""
-    # -- data ---------------------------------------------------------------------------
-    seed_everything(int(cfg.seed), cfg.trainer.threads)
+@dataclass
+class Setup:
+    """Everything a run is built from (made by :func:`build` from the config)."""
+
+    store: FeatureStore
+    fit_videos: list[str]
+    val_videos: list[str]
+    test_videos: list[str]
+    std: Standardizer
+    bags: object
+    pooling: str
+    k: int | None
+    items: list
+    loader: BagLoader
+    model: torch.nn.Module
+    terms: dict
+    optimizer: torch.optim.Optimizer
+    schedule: object
+    epochs: int
+    out_dir: Path
+
+
+def build(cfg: DictConfig) -> Setup:
+    """Check the store, split it, and build every component from the config."""
     errors = [p for p in check_store(cfg.data.root) if p.severity == "error"]
     if errors:
         raise WsadError(f"the store {cfg.data.root} has {len(errors)} problem(s), first: {errors[0]}; "
                         f"run wsad-check {cfg.data.root}")
     store = FeatureStore(cfg.data.root, crops=cfg.data.crops)
     fit_videos, val_videos = weak_validation_split(store, float(cfg.trainer.weak_val_share))
-    test_videos = store.videos("test")
     if cfg.trainer.select not in ("last", "weak_val"):
         raise WsadError(f"trainer.select={cfg.trainer.select!r}; use last or weak_val")
     if cfg.trainer.select == "weak_val" and not val_videos:
         raise WsadError("trainer.select=weak_val needs trainer.weak_val_share > 0")
-    std = Standardizer.fit(store, fit_videos) if cfg.data.standardize else Standardizer()
-
-    # -- components ---------------------------------------------------------------------
-    bag_cfg = OmegaConf.to_container(cfg.bags, resolve=True)
-    pooling, k = bag_cfg.pop("pooling"), bag_cfg.pop("k", None)
-    bags = instantiate(bag_cfg)
-    items = bags.items(store, fit_videos)
-    loader = BagLoader(store, bags, std, cache_mb=float(cfg.data.cache_mb))
-    model = build_head(cfg, store.dim)
-    terms = build_terms(cfg)
-    optimizer = instantiate(cfg.optim, params=model.parameters())
     epochs = int(cfg.trainer.epochs)
     if epochs < 1:
         raise WsadError(f"trainer.epochs={epochs}; train for at least 1 epoch")
+    std = Standardizer.fit(store, fit_videos) if cfg.data.standardize else Standardizer()
+    bag_cfg = OmegaConf.to_container(cfg.bags, resolve=True)
+    pooling, k = bag_cfg.pop("pooling"), bag_cfg.pop("k", None)
+    bags = instantiate(bag_cfg)
+    model = build_head(cfg, store.dim)
+    optimizer = instantiate(cfg.optim, params=model.parameters())
     schedule = None
     if cfg.trainer.schedule == "cosine":
         schedule = torch.optim.lr_scheduler.CosineAnnealingLR(optimizer, T_max=epochs)
     elif cfg.trainer.schedule is not None:
         raise WsadError(f"trainer.schedule={cfg.trainer.schedule!r}; use null or cosine")
-
     out_dir = Path(cfg.trainer.out_dir or _hydra_dir() or tempfile.mkdtemp(prefix="wsad-run-"))
+    return Setup(store, fit_videos, val_videos, store.videos("test"), std, bags, pooling, k,
+                 bags.items(store, fit_videos), BagLoader(store, bags, std, float(cfg.data.cache_mb)),
+                 model, build_terms(cfg), optimizer, schedule, epochs, out_dir)
+
+
+def train(cfg: DictConfig, overrides: list[str] | None = None) -> float:
+    """Train, evaluate and log one run; returns the weak-validation video AUC
+    of the selected epoch (what a sweeper should optimise; never a test metric)."""
+    apply_ablation(cfg)
+    seed_everything(int(cfg.seed), cfg.trainer.threads)
+    s = build(cfg)
+    store, model = s.store, s.model
     run = _start_run(cfg, overrides, store)
+    try:
+        # -- epochs -------------------------------------------------------------------
+        eval_cache: dict = {}  # prepared val/test arrays, reused every epoch
+        best = (-math.inf, None, 0)  # (selection value, state dict, epoch)
+        history = []
+        bar = tqdm(range(1, s.epochs + 1), desc=f"train {cfg.get('recipe_name', '')}".strip(),
+                   unit="epoch", disable=not cfg.trainer.progress)
+        for epoch in bar:
+            model.train()
+            sums = {name: 0.0 for name in s.terms}
+            total, n_batches = 0.0, 0
+            for batch in s.loader.epoch(s.items, epoch, int(cfg.seed)):
+                out = model(batch.x, batch.mask)
+                bag_scores = pool(s.pooling, out, batch.mask, s.k)
+                inp = TermInputs(out.scores, out.logits, batch.mask, batch.y, bag_scores,
+                                 out.embeddings, batch.pairs)
+                loss = 0.0
+                for name, (w, term) in s.terms.items():
+                    value = term(inp)
+                    sums[name] += float(value.detach())
+                    loss = loss + w * value
+                s.optimizer.zero_grad(set_to_none=True)
+                loss.backward()
+                if cfg.trainer.grad_clip:
+                    torch.nn.utils.clip_grad_norm_(model.parameters(), float(cfg.trainer.grad_clip))
+                s.optimizer.step()
+                total += float(loss.detach())
+                n_batches += 1
+            if s.schedule is not None:
+                s.schedule.step()
+            row = {"train_loss": total / max(1, n_batches),
+                   **{f"term/{n}": v / max(1, n_batches) for n, v in sums.items()}}
+            if s.val_videos:  # weak validation: video labels of held-out train cameras
+                vs = score_videos(model, store, s.val_videos, s.std, s.bags.chunks, cache=eval_cache)
+                row["weak_val_video_auc"] = roc_auc([store.label(v) for v in s.val_videos],
+                                                    [x.max() for x in vs.values()],
+                                                    "weak validation video AUC")
+            if epoch % int(cfg.trainer.eval_every) == 0 or epoch == s.epochs:
+                row.update(_quiet_metrics(video_scores(store, score_videos(
+                    model, store, s.test_videos, s.std, s.bags.chunks, cache=eval_cache))))
+            history.append({"epoch": epoch, **row})
+            tracking.log_metrics(run, row, step=epoch)
+            chosen = row["weak_val_video_auc"] if cfg.trainer.select == "weak_val" else epoch
+            if chosen >= best[0]:
+                best = (chosen, {n: v.clone() for n, v in model.state_dict().items()}, epoch)
+            bar.set_postfix(loss=f"{row['train_loss']:.4f}",
+                            val=f"{row.get('weak_val_video_auc', float('nan')):.3f}",
+                            auc=f"{row.get('frame_auc', float('nan')):.3f}")
 
-    # -- epochs -------------------------------------------------------------------------
-    eval_cache: dict = {}  # prepared val/test arrays, reused every epoch
-    best = (-math.inf, None, 0)  # (weak-val AUC, state dict, epoch)
-    history = []
-    bar = tqdm(range(1, epochs + 1), desc=f"train {cfg.get('recipe_name', '')}".strip(),
-               unit="epoch", disable=not cfg.trainer.progress)
-    for epoch in bar:
-        model.train()
-        sums = {name: 0.0 for name in terms}
-        total, n_batches = 0.0, 0
-        for batch in loader.epoch(items, epoch, int(cfg.seed)):
-            out = model(batch.x, batch.mask)
-            bag_scores = pool(pooling, out, batch.mask, k)
-            inp = TermInputs(out.scores, out.logits, batch.mask, batch.y, bag_scores,
-                             out.embeddings, batch.pairs)
-            loss = 0.0
-            for name, (w, term) in terms.items():
-                value = term(inp)
-                sums[name] += float(value.detach())
-                loss = loss + w * value
-            optimizer.zero_grad(set_to_none=True)
-            loss.backward()
-            if cfg.trainer.grad_clip:
-                torch.nn.utils.clip_grad_norm_(model.parameters(), float(cfg.trainer.grad_clip))
-            optimizer.step()
-            total += float(loss.detach())
-            n_batches += 1
-        if schedule is not None:
-            schedule.step()
-        row = {"train_loss": total / max(1, n_batches),
-               **{f"term/{n}": s / max(1, n_batches) for n, s in sums.items()}}
-        if val_videos:
-            vs = score_videos(model, store, val_videos, std, bags.chunks, cache=eval_cache)
-            labels = [store.label(v) for v in val_videos]
-            row["weak_val_video_auc"] = roc_auc(labels, [s.max() for s in vs.values()],
-                                                "weak validation video AUC")
-        if epoch % int(cfg.trainer.eval_every) == 0 or epoch == epochs:
-            row.update(_quiet_metrics(video_scores(store, score_videos(
-                model, store, test_videos, std, bags.chunks, cache=eval_cache))))
-        history.append({"epoch": epoch, **row})
-        tracking.log_metrics(run, row, step=epoch)
-        chosen = row.get("weak_val_video_auc", -math.inf) if cfg.trainer.select == "weak_val" else epoch
-        if chosen >= best[0] or cfg.trainer.select == "last":
-            best = (chosen, {k: v.clone() for k, v in model.state_dict().items()}, epoch)
-        bar.set_postfix(loss=f"{row['train_loss']:.4f}",
-                        val=f"{row.get('weak_val_video_auc', float('nan')):.3f}",
-                        auc=f"{row.get('frame_auc', float('nan')):.3f}")
-
-    # -- the selected model: final metrics and artifacts ---------------------------------
-    model.load_state_dict(best[1])
-    test = video_scores(store, score_videos(model, store, test_videos, std, bags.chunks))
-    final = _quiet_metrics(test)
-    if int(cfg.trainer.bootstrap) > 0 and "frame_auc" in final:
-        final.update(grouped_bootstrap(test, int(cfg.trainer.bootstrap), seed=int(cfg.seed)))
-    final["selected_epoch"] = best[2]
-    selected = next(h for h in history if h["epoch"] == best[2])
-    if "weak_val_video_auc" in selected:
-        final["weak_val_video_auc"] = selected["weak_val_video_auc"]
-    tracking.log_metrics(run, final, step=epochs)
-    _export(out_dir, cfg, model, std, store, test, history)
-    tracking.finish(run, out_dir)
-    result = {**final, "out_dir": str(out_dir), "run_id": run.run_id if run else None}
-    train.last_result = result  # for callers that want more than the returned number
+        # -- the selected model: final metrics and artifacts -----------------------------
+        model.load_state_dict(best[1])
+        test = video_scores(store, score_videos(model, store, s.test_videos, s.std, s.bags.chunks))
+        final = _quiet_metrics(test)
+        if int(cfg.trainer.bootstrap) > 0 and "frame_auc" in final:
+            final.update(grouped_bootstrap(test, int(cfg.trainer.bootstrap), seed=int(cfg.seed)))
+        final["selected_epoch"] = best[2]
+        selected = history[best[2] - 1]
+        if "weak_val_video_auc" in selected:
+            final["weak_val_video_auc"] = selected["weak_val_video_auc"]
+        tracking.log_metrics(run, final, step=s.epochs)
+        _export(s.out_dir, cfg, model, s.std, store, test, history)
+        tracking.finish(run, s.out_dir)
+    except BaseException:
+        tracking.finish(run, None, status="FAILED")
+        raise
+    train.last_result = {**final, "out_dir": str(s.out_dir), "run_id": run.run_id if run else None}
     return float(final.get("weak_val_video_auc", -history[-1]["train_loss"]))
+
+
+def _in_multirun() -> bool:
+    try:
+        from hydra.core.hydra_config import HydraConfig
+        from hydra.types import RunMode
+
+        return HydraConfig.get().mode == RunMode.MULTIRUN
+    except Exception:  # noqa: BLE001 - not running under Hydra
+        return False
 
 
 def _quiet_metrics(videos) -> dict[str, float]:

@@ -1,0 +1,41 @@
+"""wsad-report --tracking-uri URI --experiment NAME [--by P,Q] [--baseline k=v] --out DIR."""
+from __future__ import annotations
+
+import argparse
+import sys
+
+from ..errors import run_cli
+from ..evaluate import METRICS
+
+
+def _main(argv: list[str]) -> int:
+    from ..report import build_report, load_runs, markdown_table, write_report
+    from ..tracking import resolve_uri
+
+    ap = argparse.ArgumentParser(prog="wsad-report", description="Aggregate an experiment's runs "
+                                 "over seeds: tables with intervals and paired tests, and plots.")
+    ap.add_argument("--tracking-uri", default="sqlite:///mlruns.db")
+    ap.add_argument("--experiment", default="wsad")
+    ap.add_argument("--by", default=None, help="comma-separated params defining a variant "
+                    "(default: every param that varies besides the seed)")
+    ap.add_argument("--filter", default="", help="an MLflow filter string, e.g. \"params.recipe_name = 'topk'\"")
+    ap.add_argument("--baseline", default=None, help="the variant to pair against, e.g. ablation.toggle=none")
+    ap.add_argument("--metric", default="frame_auc", help="headline metric for the plots")
+    ap.add_argument("--alpha", type=float, default=0.05)
+    ap.add_argument("--out", required=True, help="folder for report.md/.csv/.tex and plots")
+    ap.add_argument("--no-plots", action="store_true")
+    args = ap.parse_args(argv)
+    uri = resolve_uri(args.tracking_uri)
+    runs = load_runs(uri, args.experiment, args.filter)
+    by = [b.strip() for b in args.by.split(",")] if args.by else None
+    rep = build_report(runs, by=by, baseline=args.baseline, metrics=METRICS, alpha=args.alpha)
+    paths = write_report(rep, args.out, uri, headline=args.metric, plots=not args.no_plots)
+    print(markdown_table(rep, args.metric))
+    print()
+    for k, p in paths.items():
+        print(f"  {k:<16} {p}")
+    return 0
+
+
+def main() -> None:
+    run_cli(lambda: _main(sys.argv[1:]), "wsad-report")

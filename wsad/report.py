@@ -1,0 +1,276 @@
+"""Runs -> tables, paired tests and plots.
+
+For each variant (a combination of the parameters that vary across runs,
+besides the seed) and each metric: mean, sd, n and the 95% t-interval
+mean +- t_{0.975, n-1} sd / sqrt(n) over seeds. Each variant is paired with a
+baseline by seed; the differences d_i get their mean with a 95% t-interval,
+the paired t-test p-value (scipy.stats.ttest_rel) and the Wilcoxon signed-rank
+p-value (scipy.stats.wilcoxon). A difference is *significant* when the paired
+t-test gives p < alpha (its interval then excludes 0). Note: with n seeds the
+exact two-sided Wilcoxon p cannot fall below 2 / 2^n (0.25 at n=3, 0.0625 at
+n=5), so it only becomes informative from about 6 seeds on.
+"""
+from __future__ import annotations
+
+import math
+import warnings
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import pandas as pd
+from scipy import stats
+
+from .errors import WsadError
+from .evaluate import METRICS
+
+# params that identify a run or a place, never a variant
+NOT_VARIANT = ("seed", "data.fingerprint", "trainer.out_dir", "trainer.progress", "tracking.",
+               "wsad.version", "trainer.resume", "trainer.threads", "hydra", "data.root")
+
+
+def t_interval(x, level: float = 0.95) -> tuple[float, float, float, float, int]:
+    """(mean, sd, lo, hi, n) with the Student t interval; lo/hi NaN when n < 2."""
+    x = np.asarray([v for v in x if v == v], dtype=float)
+    n = len(x)
+    if n == 0:
+        return (math.nan,) * 4 + (0,)
+    mean = float(x.mean())
+    if n < 2:
+        return mean, math.nan, math.nan, math.nan, n
+    sd = float(x.std(ddof=1))
+    half = float(stats.t.ppf((1 + level) / 2, n - 1)) * sd / math.sqrt(n)
+    return mean, sd, mean - half, mean + half, n
+
+
+def paired_tests(a, b) -> dict[str, float]:
+    """Differences a_i - b_i (paired by seed): mean, 95% interval, p-values."""
+    d = np.asarray(a, float) - np.asarray(b, float)
+    mean, sd, lo, hi, n = t_interval(d)
+    p_t = p_w = math.nan
+    if n >= 2 and np.any(d != 0):
+        with warnings.catch_warnings():
+            warnings.simplefilter("ignore")
+            p_t = float(stats.ttest_rel(a, b).pvalue) if sd > 0 else 0.0
+            p_w = float(stats.wilcoxon(a, b).pvalue)
+    elif n >= 2:
+        p_t = p_w = 1.0
+    return {"diff": mean, "diff_lo": lo, "diff_hi": hi, "n_pairs": n, "p_t": p_t, "p_wilcoxon": p_w}
+
+
+def load_runs(tracking_uri: str, experiment: str, filter_string: str = "") -> pd.DataFrame:
+    """One row per FINISHED run: run_id, run_name, params.* and metrics.* columns."""
+    import mlflow
+
+    client = mlflow.MlflowClient(tracking_uri)
+    exp = client.get_experiment_by_name(experiment)
+    if exp is None:
+        names = [e.name for e in client.search_experiments()]
+        raise WsadError(f"no experiment {experiment!r} at {tracking_uri}; known: {', '.join(names) or 'none'}")
+    runs, token = [], None
+    while True:
+        page = client.search_runs([exp.experiment_id], filter_string=filter_string,
+                                  max_results=1000, page_token=token)
+        runs += list(page)
+        token = page.token
+        if not token:
+            break
+    rows = []
+    for r in runs:
+        if r.info.status != "FINISHED":
+            continue
+        row = {"run_id": r.info.run_id, "run_name": r.info.run_name}
+        row.update({f"params.{k}": v for k, v in r.data.params.items()})
+        row.update({f"metrics.{k}": v for k, v in r.data.metrics.items()})
+        rows.append(row)
+    if not rows:
+        raise WsadError(f"experiment {experiment!r} has no FINISHED runs"
+                        + (f" matching {filter_string!r}" if filter_string else ""))
+    return pd.DataFrame(rows)
+
+
+def varying_params(runs: pd.DataFrame) -> list[str]:
+    """Params (without the 'params.' prefix) that take more than one value,
+    leaving out the seed and per-run bookkeeping."""
+    out = []
+    for col in runs.columns:
+        if not col.startswith("params."):
+            continue
+        key = col[len("params."):]
+        if key.startswith(NOT_VARIANT):
+            continue
+        if runs[col].fillna("<unset>").nunique() > 1:
+            out.append(key)
+    return sorted(out)
+
+
+PRIORITY = ("recipe_name", "ablation.toggle", "bags._target_", "bags.order", "head._target_")
+
+
+def _short(v) -> str:
+    v = "unset" if v is None or v != v or v == "nan" else str(v)
+    return v.rsplit(".", 1)[-1] if v.startswith("wsad.") or v.startswith("torch.") else v
+
+
+def label_keys(runs: pd.DataFrame, by: list[str]) -> list[str]:
+    """The fewest of ``by`` that still tell every variant apart (for readable
+    labels): well-known keys first, then the ones with most distinct values."""
+    if not by:
+        return []
+    full = runs[[f"params.{k}" for k in by]].fillna("unset").astype(str).agg("|".join, axis=1)
+    n_full = full.nunique()
+    order = sorted(by, key=lambda k: (PRIORITY.index(k) if k in PRIORITY else len(PRIORITY),
+                                      -runs[f"params.{k}"].nunique(), k))
+    chosen: list[str] = []
+    for k in order:
+        chosen.append(k)
+        part = runs[[f"params.{c}" for c in chosen]].fillna("unset").astype(str).agg("|".join, axis=1)
+        if part.nunique() == n_full:
+            break
+    return chosen
+
+
+def _label(values: dict[str, str]) -> str:
+    return ", ".join(f"{k}={_short(v)}" for k, v in values.items()) if values else "all runs"
+
+
+@dataclass
+class Report:
+    table: pd.DataFrame        # one row per (variant, metric)
+    runs: pd.DataFrame
+    by: list[str]
+    baseline: str
+    alpha: float
+
+
+def build_report(runs: pd.DataFrame, by: list[str] | None = None, baseline: str | None = None,
+                 metrics: tuple[str, ...] = METRICS, alpha: float = 0.05) -> Report:
+    """Group runs by ``by`` (default: the varying params), aggregate over seeds,
+    and pair every variant with ``baseline`` (a variant label, or k=v pairs;
+    default: a variant whose values look like the unchanged recipe, else the first)."""
+    by = varying_params(runs) if by is None else list(by)
+    for key in by:
+        if f"params.{key}" not in runs.columns:
+            raise WsadError(f"--by {key}: no run has this param; varying ones: "
+                            f"{', '.join(varying_params(runs)) or 'none'}")
+    runs = runs.copy()
+    for key in by:
+        if f"params.{key}" not in runs.columns:
+            runs[f"params.{key}"] = None
+    shown = label_keys(runs, by)
+    runs["variant"] = [_label({k: r.get(f"params.{k}") for k in shown}) for _, r in runs.iterrows()]
+    runs["seed"] = runs.get("params.seed", pd.Series(["0"] * len(runs)))
+    variants = list(dict.fromkeys(sorted(runs["variant"], key=_baseline_rank)))
+    base = _pick_baseline(variants, baseline)
+    rows = []
+    for metric in metrics:
+        col = f"metrics.{metric}"
+        if col not in runs.columns:
+            continue
+        base_runs = runs[runs.variant == base].set_index("seed")[col]
+        for v in variants:
+            sub = runs[runs.variant == v]
+            mean, sd, lo, hi, n = t_interval(sub[col])
+            row = {"variant": v, "metric": metric, "n": n, "mean": mean, "sd": sd, "lo": lo, "hi": hi}
+            if v != base:
+                mine = sub.set_index("seed")[col]
+                common = sorted(set(mine.index) & set(base_runs.index))
+                row.update(paired_tests(mine.loc[common].to_numpy(), base_runs.loc[common].to_numpy()))
+                row["significant"] = bool(row["p_t"] == row["p_t"] and row["p_t"] < alpha)
+            rows.append(row)
+    if not rows:
+        raise WsadError(f"the runs log none of the metrics {list(metrics)}")
+    return Report(pd.DataFrame(rows), runs, by, base, alpha)
+
+
+def _baseline_rank(label: str) -> tuple:
+    # variants that look unchanged come first: toggle=none, order=shuffled recipe default, ...
+    return (0 if "=none" in label else 1, label)
+
+
+def _pick_baseline(variants: list[str], baseline: str | None) -> str:
+    if baseline is None:
+        return variants[0]
+    if baseline in variants:
+        return baseline
+    wanted = [p.strip() for p in baseline.split(",")]
+    hits = [v for v in variants if all(w in v.split(", ") for w in wanted)]
+    if len(hits) != 1:
+        raise WsadError(f"--baseline {baseline!r} matches {len(hits)} variants; variants: "
+                        + "; ".join(variants))
+    return hits[0]
+
+
+# --- writing ------------------------------------------------------------------------------
+def _fmt(x: float, digits: int = 3) -> str:
+    return "n/a" if x is None or x != x else f"{x:.{digits}f}"
+
+
+def _p(x: float) -> str:
+    return "n/a" if x != x else (f"{x:.3f}" if x >= 0.001 else "<0.001")
+
+
+def markdown_table(rep: Report, metric: str) -> str:
+    t = rep.table[rep.table.metric == metric]
+    lines = [f"| variant | n | {metric} mean ± sd | 95% CI | Δ vs baseline [95% CI] | p (paired t) | p (Wilcoxon) |",
+             "|---|---|---|---|---|---|---|"]
+    for _, r in t.iterrows():
+        cell = f"{_fmt(r['mean'])} ± {_fmt(r['sd'])}"
+        ci = f"[{_fmt(r['lo'])}, {_fmt(r['hi'])}]"
+        if r["variant"] == rep.baseline:
+            diff, pt, pw = "baseline", "", ""
+        else:
+            diff = f"{r['diff']:+.3f} [{_fmt(r['diff_lo'])}, {_fmt(r['diff_hi'])}]"
+            pt, pw = _p(r["p_t"]), _p(r["p_wilcoxon"])
+            if r.get("significant"):
+                diff, pt = f"**{diff}**", f"**{pt}**"
+        lines.append(f"| {r['variant']} | {r['n']} | {cell} | {ci} | {diff} | {pt} | {pw} |")
+    return "\n".join(lines)
+
+
+def latex_table(rep: Report, metric: str) -> str:
+    t = rep.table[rep.table.metric == metric]
+    esc = lambda s: str(s).replace("_", r"\_").replace("%", r"\%").replace("&", r"\&")  # noqa: E731
+    out = [r"\begin{tabular}{lrlll}", r"\toprule",
+           rf"Variant & $n$ & {esc(metric)} (mean $\pm$ sd) & $\Delta$ vs baseline [95\% CI] & $p$ \\",
+           r"\midrule"]
+    for _, r in t.iterrows():
+        if r["variant"] == rep.baseline:
+            diff, p = "baseline", ""
+        else:
+            diff = f"${r['diff']:+.3f}$ [{_fmt(r['diff_lo'])}, {_fmt(r['diff_hi'])}]"
+            p = _p(r["p_t"])
+            if r.get("significant"):
+                diff, p = rf"\textbf{{{diff}}}", rf"\textbf{{{p}}}"
+        out.append(rf"{esc(r['variant'])} & {r['n']} & ${_fmt(r['mean'])} \pm {_fmt(r['sd'])}$ & {diff} & {p} \\")
+    out += [r"\bottomrule", r"\end{tabular}"]
+    return "\n".join(out)
+
+
+def write_report(rep: Report, out: Path, tracking_uri: str | None = None,
+                 headline: str = "frame_auc", plots: bool = True) -> dict[str, Path]:
+    """report.md, report.csv, report.tex and (with a tracking URI) the plots."""
+    out = Path(out)
+    out.mkdir(parents=True, exist_ok=True)
+    paths = {}
+    metrics = list(dict.fromkeys(rep.table.metric))
+    n_seeds = rep.runs.groupby("variant").size()
+    md = [f"# Ablation report", "",
+          f"{len(rep.runs)} finished runs, {rep.runs.variant.nunique()} variants "
+          f"(grouped by {', '.join(rep.by) or 'nothing'}), seeds per variant "
+          f"{n_seeds.min()}–{n_seeds.max()}. Baseline: **{rep.baseline}**.", "",
+          f"Intervals are 95% Student t over seeds; Δ is paired by seed. Bold: paired t-test "
+          f"p < {rep.alpha}. With n seeds the Wilcoxon signed-rank p cannot fall below 2/2^n.", ""]
+    for m in metrics:
+        md += [f"## {m}", "", markdown_table(rep, m), ""]
+    paths["md"] = out / "report.md"
+    paths["md"].write_text("\n".join(md))
+    paths["csv"] = out / "report.csv"
+    rep.table.to_csv(paths["csv"], index=False)
+    paths["tex"] = out / "report.tex"
+    paths["tex"].write_text("\n\n".join(f"% {m}\n" + latex_table(rep, m) for m in metrics) + "\n")
+    if plots:
+        from . import report_plots
+
+        paths.update(report_plots.all_plots(rep, out, tracking_uri, headline))
+    return paths
