@@ -6,7 +6,7 @@ TORCH_SPEC ?= torch==2.13.0
 STAMP := $(VENV)/.installed
 DEMO_DIR ?= demo_out
 
-.PHONY: setup test demo clean
+.PHONY: setup test demo ui clean
 
 setup: $(STAMP)
 
@@ -27,3 +27,10 @@ demo: setup
 
 clean:
 	rm -rf $(VENV) $(DEMO_DIR) .pytest_cache
+
+# MLflow UI on the loopback interface only (set UI_HOST to expose it deliberately).
+UI_HOST ?= 127.0.0.1
+UI_PORT ?= 5000
+TRACKING_URI ?= sqlite:///$(CURDIR)/$(DEMO_DIR)/mlruns.db
+ui: setup
+	$(BIN)/mlflow ui --host $(UI_HOST) --port $(UI_PORT) --backend-store-uri $(TRACKING_URI)

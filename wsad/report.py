@@ -26,7 +26,8 @@ from .evaluate import METRICS
 
 # params that identify a run or a place, never a variant
 NOT_VARIANT = ("seed", "data.fingerprint", "trainer.out_dir", "trainer.progress", "tracking.",
-               "wsad.version", "trainer.resume", "trainer.threads", "hydra", "data.root")
+               "wsad.version", "trainer.resume", "trainer.threads", "hydra", "data.root",
+               "choice.sweep", "choice.tracking")
 
 
 def t_interval(x, level: float = 0.95) -> tuple[float, float, float, float, int]:
@@ -104,7 +105,8 @@ def varying_params(runs: pd.DataFrame) -> list[str]:
     return sorted(out)
 
 
-PRIORITY = ("recipe_name", "ablation.toggle", "bags._target_", "bags.order", "head._target_")
+PRIORITY = ("choice.recipe", "recipe_name", "choice.bags", "choice.head", "ablation.toggle",
+            "choice.optim", "bags._target_", "bags.order", "head._target_")
 
 
 def _short(v) -> str:
@@ -131,7 +133,9 @@ def label_keys(runs: pd.DataFrame, by: list[str]) -> list[str]:
 
 
 def _label(values: dict[str, str]) -> str:
-    return ", ".join(f"{k}={_short(v)}" for k, v in values.items()) if values else "all runs"
+    if not values:
+        return "all runs"
+    return ", ".join(f"{k.removeprefix('choice.')}={_short(v)}" for k, v in values.items())
 
 
 @dataclass
@@ -162,6 +166,7 @@ def build_report(runs: pd.DataFrame, by: list[str] | None = None, baseline: str 
     runs["seed"] = runs.get("params.seed", pd.Series(["0"] * len(runs)))
     variants = list(dict.fromkeys(sorted(runs["variant"], key=_baseline_rank)))
     base = _pick_baseline(variants, baseline)
+    variants = [base] + [v for v in variants if v != base]
     rows = []
     for metric in metrics:
         col = f"metrics.{metric}"

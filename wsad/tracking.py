@@ -73,6 +73,17 @@ def run_name(cfg: DictConfig, overrides: list[str] | None) -> str:
     return " ".join(parts)
 
 
+def hydra_choices() -> dict[str, str]:
+    """The config-group options a Hydra run was composed from (bags=pairs, ...)."""
+    try:
+        from hydra.core.hydra_config import HydraConfig
+
+        choices = HydraConfig.get().runtime.choices
+    except Exception:  # noqa: BLE001 - not running under Hydra
+        return {}
+    return {k: v for k, v in choices.items() if not k.startswith("hydra") and v is not None}
+
+
 def git_commit() -> str | None:
     try:
         out = subprocess.run(["git", "rev-parse", "HEAD"], cwd=PROJECT_ROOT, capture_output=True,
@@ -122,6 +133,7 @@ def start_run(cfg: DictConfig, overrides: list[str] | None, fingerprint: str) ->
     params = flatten(cfg)
     params.update({"seed": str(cfg.seed), "data.fingerprint": fingerprint,
                    "wsad.version": __version__})
+    params.update({f"choice.{k}": str(v) for k, v in hydra_choices().items()})
     active = retry(lambda: mlflow.start_run(experiment_id=exp_id, run_name=run_name(cfg, overrides),
                                             tags=standard_tags(fingerprint)))
     items = list(params.items())

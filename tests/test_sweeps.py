@@ -1,0 +1,171 @@
+"""Sweeps: a sound tracking store under parallel workers, submitit jobs, a real
+MLflow server, and the presets."""
+from __future__ import annotations
+
+import os
+import socket
+import sqlite3
+import subprocess
+import sys
+import time
+import urllib.request
+from pathlib import Path
+
+import mlflow
+import pytest
+
+from wsad.config import compose_config
+
+BASE = ["trainer.epochs=1", "trainer.progress=false", "trainer.bootstrap=0"]
+
+
+def wsad_train(cwd: Path, *args: str, timeout=600) -> subprocess.CompletedProcess:
+    code = "import sys; from wsad.cli.train import main; sys.argv=['wsad-train']+sys.argv[1:]; main()"
+    return subprocess.run([sys.executable, "-c", code, *args], cwd=cwd, capture_output=True,
+                          text=True, timeout=timeout)
+
+
+def _runs(db: Path) -> list[tuple]:
+    con = sqlite3.connect(db)
+    try:
+        return con.execute("select status from runs").fetchall()
+    finally:
+        con.close()
+
+
+def _integrity(db: Path) -> str:
+    con = sqlite3.connect(db)
+    try:
+        return con.execute("PRAGMA integrity_check").fetchone()[0]
+    finally:
+        con.close()
+
+
+def test_eight_runs_four_workers_fresh_sqlite(small_store, tmp_path):
+    res = wsad_train(tmp_path, "-m", f"data.root={small_store}", "recipe=topk,windows",
+                     "seed=0,1,2,3", *BASE, "hydra/launcher=joblib", "hydra.launcher.n_jobs=4")
+    assert res.returncode == 0, res.stderr[-3000:]
+    db = tmp_path / "mlruns.db"
+    assert [s for (s,) in _runs(db)] == ["FINISHED"] * 8
+    assert _integrity(db) == "ok"
+    client = mlflow.MlflowClient(f"sqlite:///{db}")
+    names = {r.info.run_name for r in client.search_runs(
+        [client.get_experiment_by_name("wsad").experiment_id])}
+    # readable names: recipe, the overrides that changed something, seed (not data.root)
+    assert "windows trainer.epochs=1 trainer.bootstrap=0 seed=3" in names
+    assert len(names) == 8
+    # the report over that sweep: both variants, intervals, p-values, plots
+    code = "import sys; from wsad.cli.report import main; sys.argv=['wsad-report']+sys.argv[1:]; main()"
+    rep = subprocess.run([sys.executable, "-c", code, "--tracking-uri", f"sqlite:///{db}",
+                          "--experiment", "wsad", "--out", str(tmp_path / "report")],
+                         capture_output=True, text=True, timeout=300, cwd=tmp_path)
+    assert rep.returncode == 0, rep.stderr[-2000:]
+    assert "recipe=topk" in rep.stdout and "recipe=windows" in rep.stdout
+    table = __import__("pandas").read_csv(tmp_path / "report" / "report.csv")
+    fa = table[table.metric == "frame_auc"]
+    assert (fa["n"] == 4).all() and fa["lo"].notna().all() and fa["p_wilcoxon"].notna().sum() == 1
+    for png in ("frame_auc_by_variant.png", "roc_overlay.png", "learning_curves.png", "timelines.png"):
+        assert (tmp_path / "report" / png).stat().st_size > 10_000
+
+
+def test_sweep_through_submitit_local(small_store, tmp_path):
+    res = wsad_train(tmp_path, "-m", f"data.root={small_store}", "recipe=topk", "seed=0,1", *BASE,
+                     "hydra/launcher=submitit_local", "hydra.launcher.timeout_min=10",
+                     "hydra.launcher.cpus_per_task=1")
+    assert res.returncode == 0, res.stderr[-3000:]
+    db = tmp_path / "mlruns.db"
+    assert [s for (s,) in _runs(db)] == ["FINISHED"] * 2
+    assert list((tmp_path / "multirun").glob("*/*/.submitit"))  # real submitit jobs ran
+
+
+def _free_port() -> int:
+    with socket.socket() as s:
+        s.bind(("127.0.0.1", 0))
+        return s.getsockname()[1]
+
+
+@pytest.fixture
+def mlflow_server(tmp_path):
+    port = _free_port()
+    exe = Path(sys.executable).with_name("mlflow")
+    proc = subprocess.Popen([str(exe), "server", "--host", "127.0.0.1", "--port", str(port),
+                             "--backend-store-uri", f"sqlite:///{tmp_path}/server.db",
+                             "--artifacts-destination", str(tmp_path / "server_artifacts"),
+                             "--workers", "1"],
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, cwd=tmp_path)
+    url = f"http://127.0.0.1:{port}"
+    deadline = time.time() + 120
+    while time.time() < deadline:
+        try:
+            with urllib.request.urlopen(f"{url}/health", timeout=2) as r:
+                if r.status == 200:
+                    break
+        except OSError:
+            time.sleep(0.5)
+    else:
+        proc.kill()
+        pytest.fail("mlflow server did not come up")
+    yield url, tmp_path / "server_artifacts"
+    proc.terminate()
+    proc.wait(timeout=30)
+
+
+def test_parallel_workers_log_to_a_real_server(small_store, tmp_path, mlflow_server):
+    url, artifact_root = mlflow_server
+    work = tmp_path / "work"
+    work.mkdir()
+    res = wsad_train(work, "-m", f"data.root={small_store}", "recipe=topk", "seed=0,1", *BASE,
+                     f"tracking.uri={url}", "tracking.experiment=served", "hydra/launcher=joblib",
+                     "hydra.launcher.n_jobs=2")
+    assert res.returncode == 0, res.stderr[-3000:]
+    client = mlflow.MlflowClient(url)
+    exp = client.get_experiment_by_name("served")
+    runs = client.search_runs([exp.experiment_id])
+    assert len(runs) == 2 and {r.info.status for r in runs} == {"FINISHED"}
+    for r in runs:
+        paths = {a.path for a in client.list_artifacts(r.info.run_id, "scores")}
+        assert "scores/test_scores.parquet" in paths
+    # the artifacts went through the server to its own store, not to the worker's folder
+    assert len(list(artifact_root.rglob("test_scores.parquet"))) == 2
+    assert not (work / "mlruns").exists() and not (work / "mlartifacts").exists()
+
+
+def test_sweep_presets_compose():
+    from hydra import compose, initialize_config_dir
+    from hydra.core.global_hydra import GlobalHydra
+
+    from wsad.config import CONF_DIR
+
+    GlobalHydra.instance().clear()
+    with initialize_config_dir(config_dir=str(CONF_DIR), version_base="1.3"):
+        cfg = compose("config", overrides=["data.root=x", "sweep=[terms,seeds]"], return_hydra_config=True)
+        params = cfg.hydra.sweeper.params
+        assert params["ablation.toggle"] == "none,smoothness,sparsity,cluster_distance"
+        assert params["seed"] == "0,1,2,3,4"
+        cfg = compose("config", overrides=["data.root=x", "sweep=bags"], return_hydra_config=True)
+        assert cfg.hydra.sweeper.params["bags"] == "windows_sequential,windows,whole,pairs"
+        cfg = compose("config", overrides=["data.root=x", "sweep=optuna"], return_hydra_config=True)
+        assert cfg.hydra.sweeper.direction == "maximize"
+        assert not any("frame" in k or "test" in k for k in cfg.hydra.sweeper.params)
+    GlobalHydra.instance().clear()
+
+
+def test_ablation_toggle_switches_one_term(small_store):
+    from wsad.train import apply_ablation
+
+    cfg = compose_config([f"data.root={small_store}", "recipe=windows", "ablation.toggle=smoothness"])
+    apply_ablation(cfg)
+    assert cfg.objective.smoothness == 0.0 and cfg.objective.video_bce == 1.0
+    cfg = compose_config([f"data.root={small_store}", "recipe=windows", "ablation.toggle=cluster_distance"])
+    apply_ablation(cfg)
+    assert cfg.objective.cluster_distance == 1e-3
+    cfg = compose_config([f"data.root={small_store}", "recipe=windows", "bags=windows_sequential"])
+    assert cfg.bags.order == "sequential" and cfg.bags.size == 32
+
+
+def test_optuna_search_runs_on_weak_validation(small_store, tmp_path):
+    res = wsad_train(tmp_path, "-m", f"data.root={small_store}", "recipe=topk", "sweep=optuna",
+                     "hydra.sweeper.n_trials=2", *BASE, "tracking.enabled=false")
+    assert res.returncode == 0, res.stderr[-3000:]
+    best = list((tmp_path / "multirun").glob("*/*/optimization_results.yaml"))
+    assert best and "best_value" in best[0].read_text()
