@@ -14,6 +14,16 @@ from sklearn.metrics import roc_curve  # noqa: E402
 from .evaluate import VideoScores  # noqa: E402
 
 
+def save_figure(fig, path: Path, dpi: int = 120) -> Path:
+    """Save through a temporary file and a rename: a killed run never leaves half a PNG."""
+    path = Path(path)
+    tmp = path.with_name(f".{path.stem}.tmp{path.suffix}")
+    fig.savefig(tmp, dpi=dpi)
+    plt.close(fig)
+    tmp.replace(path)
+    return path
+
+
 def roc_plot(curves: dict[str, tuple[np.ndarray, np.ndarray]], path: Path, title: str = "") -> Path:
     """curves: name -> (frame labels, frame scores)."""
     sns.set_theme(style="whitegrid")
@@ -26,9 +36,7 @@ def roc_plot(curves: dict[str, tuple[np.ndarray, np.ndarray]], path: Path, title
            title=title or "frame-level ROC")
     ax.legend(loc="lower right", fontsize=8)
     fig.tight_layout()
-    fig.savefig(path, dpi=120)
-    plt.close(fig)
-    return path
+    return save_figure(fig, path, 120)
 
 
 def pick_timeline_videos(videos: list[VideoScores], n: int = 6) -> list[VideoScores]:
@@ -60,6 +68,4 @@ def timeline_plot(videos: list[VideoScores], path: Path, title: str = "") -> Pat
     if title:
         fig.suptitle(title, fontsize=9)
     fig.tight_layout()
-    fig.savefig(path, dpi=110)
-    plt.close(fig)
-    return path
+    return save_figure(fig, path, 110)

@@ -14,7 +14,7 @@ import numpy as np  # noqa: E402
 import pandas as pd  # noqa: E402
 import seaborn as sns  # noqa: E402
 
-from .plots import roc_plot  # noqa: E402
+from .plots import roc_plot, save_figure  # noqa: E402
 
 
 def metric_plot(rep, metric: str, path: Path) -> Path:
@@ -32,9 +32,7 @@ def metric_plot(rep, metric: str, path: Path) -> Path:
     ax.set(xlabel=metric, ylabel="", title=f"{metric} per variant (dots: seeds)")
     ax.legend(loc="best", fontsize=8)
     fig.tight_layout()
-    fig.savefig(path, dpi=120)
-    plt.close(fig)
-    return path
+    return save_figure(fig, path, 120)
 
 
 def _one_run_per_variant(rep) -> dict[str, str]:
@@ -77,9 +75,7 @@ def learning_curves(rep, client, path: Path, metric: str) -> Path:
             for t in ax.get_legend().get_texts():
                 t.set_fontsize(7)
     fig.tight_layout()
-    fig.savefig(path, dpi=110)
-    plt.close(fig)
-    return path
+    return save_figure(fig, path, 110)
 
 
 def timelines(scores: dict[str, pd.DataFrame], path: Path, n_videos: int = 4) -> Path:
@@ -102,9 +98,7 @@ def timelines(scores: dict[str, pd.DataFrame], path: Path, n_videos: int = 4) ->
     axes[0, 0].legend(fontsize=6, loc="upper right", ncol=2)
     axes[-1, 0].set_xlabel("frame")
     fig.tight_layout()
-    fig.savefig(path, dpi=110)
-    plt.close(fig)
-    return path
+    return save_figure(fig, path, 110)
 
 
 def all_plots(rep, out: Path, tracking_uri: str | None, headline: str) -> dict[str, Path]:

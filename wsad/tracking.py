@@ -104,7 +104,8 @@ def standard_tags(fingerprint: str) -> dict[str, str]:
 def log_artifacts(local_dir: Path) -> None:
     import mlflow
 
-    for sub in sorted(p for p in Path(local_dir).iterdir() if p.is_dir()):
+    # state/ holds the resume checkpoint: uploaded only when a run is interrupted
+    for sub in sorted(p for p in Path(local_dir).iterdir() if p.is_dir() and p.name != "state"):
         retry(lambda: mlflow.log_artifacts(str(sub), artifact_path=sub.name))
 
 
@@ -162,3 +163,29 @@ def finish(run: Run | None, out_dir: Path | None, status: str = "FINISHED") -> N
         log_artifacts(out_dir)
     if mlflow.active_run() is not None:
         retry(lambda: mlflow.end_run(status=status))
+
+
+def reopen_run(uri: str, run_id: str) -> Run:
+    """Continue an existing run (status back to RUNNING)."""
+    import mlflow
+
+    mlflow.set_tracking_uri(resolve_uri(uri))
+    active = retry(lambda: mlflow.start_run(run_id=run_id))
+    return Run(active.info.run_id)
+
+
+def set_tag(run: Run | None, key: str, value: str) -> None:
+    if run is None:
+        return
+    import mlflow
+
+    retry(lambda: mlflow.set_tag(key, value))
+
+
+def log_state(run: Run | None, path: Path) -> None:
+    """Upload the resume checkpoint (so another machine can continue the run)."""
+    if run is None or not Path(path).is_file():
+        return
+    import mlflow
+
+    retry(lambda: mlflow.log_artifact(str(path), artifact_path="state"))

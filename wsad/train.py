@@ -21,9 +21,11 @@ from . import tracking
 from .bags.base import BagLoader, Standardizer
 from .errors import WsadError
 from .evaluate import METRICS, compute_metrics, frame_table, grouped_bootstrap, roc_auc
-from .model_io import build_head, save_checkpoint, score_videos, video_scores
+from .model_io import build_head, load_checkpoint, save_checkpoint, score_videos, video_scores
 from .plots import roc_plot, timeline_plot
 from .pooling import pool
+from .resume import (GracefulStop, TrainingInterrupted, find_checkpoint, rng_state, save_state,
+                     set_rng_state)
 from .store import FeatureStore, check_store, store_fingerprint
 from .terms.base import TermInputs
 
@@ -153,60 +155,99 @@ def build(cfg: DictConfig) -> Setup:
 
 def train(cfg: DictConfig, overrides: list[str] | None = None) -> float:
     """Train, evaluate and log one run; returns the weak-validation video AUC
-    of the selected epoch (what a sweeper should optimise; never a test metric)."""
-    apply_ablation(cfg)
+    of the selected epoch (what a sweeper should optimise; never a test metric).
+
+    ``trainer.resume=RUN_ID`` continues an interrupted run from its last saved
+    state, with the configuration it was started with."""
+    state = None
+    if cfg.trainer.get("resume"):
+        cfg, state = _resume_point(cfg)
+    else:
+        apply_ablation(cfg)
     seed_everything(int(cfg.seed), cfg.trainer.threads)
     s = build(cfg)
     store, model = s.store, s.model
-    run = _start_run(cfg, overrides, store)
+    epoch0, batch0 = 1, 0
+    eval_cache: dict = {}  # prepared val/test arrays, reused every epoch
+    best = (-math.inf, None, 0)  # (selection value, state dict, epoch)
+    history: list[dict] = []
+    partial = {"sums": {name: 0.0 for name in s.terms}, "total": 0.0, "n_batches": 0}
+    if state is not None:
+        model.load_state_dict(state["model"])
+        s.optimizer.load_state_dict(state["optimizer"])
+        if s.schedule is not None and state.get("schedule"):
+            s.schedule.load_state_dict(state["schedule"])
+        set_rng_state(state["rng"])
+        epoch0, batch0 = state["epoch"], state["batch"]
+        best = (state["best_value"], state["best_state"], state["best_epoch"])
+        history, partial = state["history"], state["partial"]
+    run = _start_run(cfg, overrides, store, cfg.trainer.get("resume"))
+    resume_path = s.out_dir / "state" / "resume.pt"
+    tracking.set_tag(run, "wsad.resume_checkpoint", str(resume_path.resolve()))
+
+    def snapshot(epoch: int, batch: int) -> dict:
+        return {"config": OmegaConf.to_yaml(cfg, resolve=True), "model": model.state_dict(),
+                "optimizer": s.optimizer.state_dict(),
+                "schedule": s.schedule.state_dict() if s.schedule is not None else None,
+                "rng": rng_state(), "epoch": epoch, "batch": batch, "best_value": best[0],
+                "best_state": best[1], "best_epoch": best[2], "history": history,
+                "partial": partial}
+
     try:
-        # -- epochs -------------------------------------------------------------------
-        eval_cache: dict = {}  # prepared val/test arrays, reused every epoch
-        best = (-math.inf, None, 0)  # (selection value, state dict, epoch)
-        history = []
-        bar = tqdm(range(1, s.epochs + 1), desc=f"train {cfg.get('recipe_name', '')}".strip(),
-                   unit="epoch", disable=not cfg.trainer.progress)
-        for epoch in bar:
-            model.train()
-            sums = {name: 0.0 for name in s.terms}
-            total, n_batches = 0.0, 0
-            for batch in s.loader.epoch(s.items, epoch, int(cfg.seed)):
-                out = model(batch.x, batch.mask)
-                bag_scores = pool(s.pooling, out, batch.mask, s.k)
-                inp = TermInputs(out.scores, out.logits, batch.mask, batch.y, bag_scores,
-                                 out.embeddings, batch.pairs)
-                loss = 0.0
-                for name, (w, term) in s.terms.items():
-                    value = term(inp)
-                    sums[name] += float(value.detach())
-                    loss = loss + w * value
-                s.optimizer.zero_grad(set_to_none=True)
-                loss.backward()
-                if cfg.trainer.grad_clip:
-                    torch.nn.utils.clip_grad_norm_(model.parameters(), float(cfg.trainer.grad_clip))
-                s.optimizer.step()
-                total += float(loss.detach())
-                n_batches += 1
-            if s.schedule is not None:
-                s.schedule.step()
-            row = {"train_loss": total / max(1, n_batches),
-                   **{f"term/{n}": v / max(1, n_batches) for n, v in sums.items()}}
-            if s.val_videos:  # weak validation: video labels of held-out train cameras
-                vs = score_videos(model, store, s.val_videos, s.std, s.bags.chunks, cache=eval_cache)
-                row["weak_val_video_auc"] = roc_auc([store.label(v) for v in s.val_videos],
-                                                    [x.max() for x in vs.values()],
-                                                    "weak validation video AUC")
-            if epoch % int(cfg.trainer.eval_every) == 0 or epoch == s.epochs:
-                row.update(_quiet_metrics(video_scores(store, score_videos(
-                    model, store, s.test_videos, s.std, s.bags.chunks, cache=eval_cache))))
-            history.append({"epoch": epoch, **row})
-            tracking.log_metrics(run, row, step=epoch)
-            chosen = row["weak_val_video_auc"] if cfg.trainer.select == "weak_val" else epoch
-            if chosen >= best[0]:
-                best = (chosen, {n: v.clone() for n, v in model.state_dict().items()}, epoch)
-            bar.set_postfix(loss=f"{row['train_loss']:.4f}",
-                            val=f"{row.get('weak_val_video_auc', float('nan')):.3f}",
-                            auc=f"{row.get('frame_auc', float('nan')):.3f}")
+        with GracefulStop() as stop:
+            bar = tqdm(range(epoch0, s.epochs + 1), desc=f"train {cfg.get('recipe_name', '')}".strip(),
+                       unit="epoch", disable=not cfg.trainer.progress, initial=epoch0 - 1,
+                       total=s.epochs)
+            for epoch in bar:
+                model.train()
+                batches = s.bags.batches(s.items, epoch, int(cfg.seed))
+                for bi in range(batch0 if epoch == epoch0 else 0, len(batches)):
+                    batch = s.loader.collate([s.items[i] for i in batches[bi]])
+                    out = model(batch.x, batch.mask)
+                    bag_scores = pool(s.pooling, out, batch.mask, s.k)
+                    inp = TermInputs(out.scores, out.logits, batch.mask, batch.y, bag_scores,
+                                     out.embeddings, batch.pairs)
+                    loss = 0.0
+                    for name, (w, term) in s.terms.items():
+                        value = term(inp)
+                        partial["sums"][name] += float(value.detach())
+                        loss = loss + w * value
+                    s.optimizer.zero_grad(set_to_none=True)
+                    loss.backward()
+                    if cfg.trainer.grad_clip:
+                        torch.nn.utils.clip_grad_norm_(model.parameters(), float(cfg.trainer.grad_clip))
+                    s.optimizer.step()
+                    partial["total"] += float(loss.detach())
+                    partial["n_batches"] += 1
+                    if stop.requested:  # the step is done: save where we are, then stop
+                        save_state(resume_path, snapshot(epoch, bi + 1))
+                        raise TrainingInterrupted(
+                            f"stopped by signal {stop.signum} in epoch {epoch} after batch {bi + 1}; "
+                            f"resume with trainer.resume={run.run_id if run else '<run id>'}",
+                            stop.signum)
+                if s.schedule is not None:
+                    s.schedule.step()
+                n = max(1, partial["n_batches"])
+                row = {"train_loss": partial["total"] / n,
+                       **{f"term/{k}": v / n for k, v in partial["sums"].items()}}
+                partial = {"sums": {name: 0.0 for name in s.terms}, "total": 0.0, "n_batches": 0}
+                if s.val_videos:  # weak validation: video labels of held-out train cameras
+                    vs = score_videos(model, store, s.val_videos, s.std, s.bags.chunks, cache=eval_cache)
+                    row["weak_val_video_auc"] = roc_auc([store.label(v) for v in s.val_videos],
+                                                        [x.max() for x in vs.values()],
+                                                        "weak validation video AUC")
+                if epoch % int(cfg.trainer.eval_every) == 0 or epoch == s.epochs:
+                    row.update(_quiet_metrics(video_scores(store, score_videos(
+                        model, store, s.test_videos, s.std, s.bags.chunks, cache=eval_cache))))
+                history.append({"epoch": epoch, **row})
+                tracking.log_metrics(run, row, step=epoch)
+                chosen = row["weak_val_video_auc"] if cfg.trainer.select == "weak_val" else epoch
+                if chosen >= best[0]:
+                    best = (chosen, {n: v.clone() for n, v in model.state_dict().items()}, epoch)
+                save_state(resume_path, snapshot(epoch + 1, 0))
+                bar.set_postfix(loss=f"{row['train_loss']:.4f}",
+                                val=f"{row.get('weak_val_video_auc', float('nan')):.3f}",
+                                auc=f"{row.get('frame_auc', float('nan')):.3f}")
 
         # -- the selected model: final metrics and artifacts -----------------------------
         model.load_state_dict(best[1])
@@ -221,11 +262,29 @@ def train(cfg: DictConfig, overrides: list[str] | None = None) -> float:
         tracking.log_metrics(run, final, step=s.epochs)
         _export(s.out_dir, cfg, model, s.std, store, test, history)
         tracking.finish(run, s.out_dir)
+    except TrainingInterrupted:
+        tracking.log_state(run, resume_path)
+        tracking.finish(run, None, status="KILLED")
+        raise
     except BaseException:
         tracking.finish(run, None, status="FAILED")
         raise
     train.last_result = {**final, "out_dir": str(s.out_dir), "run_id": run.run_id if run else None}
     return float(final.get("weak_val_video_auc", -history[-1]["train_loss"]))
+
+
+def _resume_point(cfg: DictConfig) -> tuple[DictConfig, dict]:
+    """The saved state of run ``trainer.resume`` and the config it was started with."""
+    run_id = str(cfg.trainer.resume)
+    if not cfg.tracking.enabled:
+        raise WsadError("trainer.resume needs tracking (the run id names the run to continue)")
+    path = find_checkpoint(run_id, tracking.resolve_uri(str(cfg.tracking.uri)))
+    state = load_checkpoint(path)
+    saved = OmegaConf.create(state["config"])
+    saved.trainer.resume = run_id
+    saved.trainer.progress = cfg.trainer.progress
+    saved.tracking = cfg.tracking
+    return saved, state
 
 
 def _in_multirun() -> bool:
@@ -253,9 +312,11 @@ def _hydra_dir() -> str | None:
         return None
 
 
-def _start_run(cfg: DictConfig, overrides, store: FeatureStore):
+def _start_run(cfg: DictConfig, overrides, store: FeatureStore, resume_id: str | None = None):
     if not cfg.tracking.enabled:
         return None
+    if resume_id:
+        return tracking.reopen_run(str(cfg.tracking.uri), str(resume_id))
     return tracking.start_run(cfg, overrides, store_fingerprint(store.root))
 
 

@@ -23,8 +23,8 @@ def _app(cfg: DictConfig) -> float:
     except WsadError as err:
         if os.environ.get("WSAD_DEBUG", "") not in ("", "0"):
             raise
-        print(f"wsad-train: error: {err}", file=sys.stderr)
-        sys.exit(2)
+        print(f"wsad-train: {'error: ' if err.exit_code == 2 else ''}{err}", file=sys.stderr)
+        sys.exit(err.exit_code)
     from ..train import train as t
 
     r = t.last_result
