@@ -16,8 +16,24 @@ from .evaluate import VideoScores, chunks_to_segments
 from .store.format import FeatureStore
 
 
+def build_component(node, what: str, **kwargs):
+    """``instantiate`` with errors as one line: a component's own WsadError
+    passes through; anything else names the component and its target."""
+    from hydra.errors import InstantiationException
+
+    try:
+        return instantiate(node, **kwargs)
+    except InstantiationException as err:
+        cause = err.__cause__
+        if isinstance(cause, WsadError):
+            raise cause from None
+        target = node.get("_target_", "?") if hasattr(node, "get") else "?"
+        detail = str(cause or err).strip().splitlines()[-1]
+        raise WsadError(f"could not build {what} ({target}): {detail}") from None
+
+
 def build_head(cfg: DictConfig, in_dim: int) -> torch.nn.Module:
-    return instantiate(cfg.head, in_dim=in_dim)
+    return build_component(cfg.head, "head", in_dim=in_dim)
 
 
 @torch.no_grad()

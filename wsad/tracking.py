@@ -28,6 +28,33 @@ def retry(fn: Callable[[], Any], attempts: int = 8, delay: float = 0.25) -> Any:
     return None
 
 
+def ensure_sqlite_store(uri: str) -> None:
+    """Create a fresh SQLite tracking store off to the side and move it into place.
+
+    MLflow migrates a new store's schema in many steps; a process killed midway, or a
+    second process migrating at the same time, leaves a store that no longer opens.
+    Built under a temporary name and linked into place only when complete (a link
+    never overwrites: the first complete store wins), the store at ``uri`` is always
+    either absent or whole."""
+    if not uri.startswith("sqlite:///"):
+        return
+    path = Path(uri[len("sqlite:///"):])
+    if path.exists():
+        return
+    import mlflow
+
+    path.parent.mkdir(parents=True, exist_ok=True)
+    tmp = path.with_name(f".{path.name}.{os.getpid()}.init")
+    tmp.unlink(missing_ok=True)
+    mlflow.MlflowClient(f"sqlite:///{tmp}").search_experiments()  # runs the migrations
+    try:
+        os.link(tmp, path)
+    except FileExistsError:
+        pass  # another process finished first; its store is as good as ours
+    finally:
+        tmp.unlink(missing_ok=True)
+
+
 def prepare(uri: str, experiment: str) -> str:
     """Create (or open) the tracking store and the experiment; returns its id.
 
@@ -36,6 +63,7 @@ def prepare(uri: str, experiment: str) -> str:
     """
     import mlflow
 
+    ensure_sqlite_store(uri)
     mlflow.set_tracking_uri(uri)
     client = mlflow.MlflowClient(uri)
     exp = retry(lambda: client.get_experiment_by_name(experiment))

@@ -13,7 +13,6 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import torch
-from hydra.utils import instantiate
 from omegaconf import DictConfig, OmegaConf
 from tqdm.auto import tqdm
 
@@ -21,7 +20,7 @@ from . import tracking
 from .bags.base import BagLoader, Standardizer
 from .errors import WsadError
 from .evaluate import METRICS, compute_metrics, frame_table, grouped_bootstrap, roc_auc
-from .model_io import build_head, load_checkpoint, save_checkpoint, score_videos, video_scores
+from .model_io import build_component, build_head, load_checkpoint, save_checkpoint, score_videos, video_scores
 from .plots import roc_plot, timeline_plot
 from .pooling import pool
 from .resume import (GracefulStop, TrainingInterrupted, find_checkpoint, rng_state, save_state,
@@ -93,7 +92,7 @@ def build_terms(cfg: DictConfig) -> dict[str, tuple[float, object]]:
         if name not in cfg.terms:
             raise WsadError(f"objective.{name} has no settings in terms/; known terms: "
                             f"{', '.join(cfg.terms.keys())}")
-        terms[name] = (weight, instantiate(cfg.terms[name]))
+        terms[name] = (weight, build_component(cfg.terms[name], f"term {name}"))
     if not terms:
         raise WsadError("every objective weight is 0; enable a term, e.g. objective.bag_bce=1")
     return terms
@@ -139,9 +138,9 @@ def build(cfg: DictConfig) -> Setup:
     std = Standardizer.fit(store, fit_videos) if cfg.data.standardize else Standardizer()
     bag_cfg = OmegaConf.to_container(cfg.bags, resolve=True)
     pooling, k = bag_cfg.pop("pooling"), bag_cfg.pop("k", None)
-    bags = instantiate(bag_cfg)
+    bags = build_component(bag_cfg, "bags")
     model = build_head(cfg, store.dim)
-    optimizer = instantiate(cfg.optim, params=model.parameters())
+    optimizer = build_component(cfg.optim, "optim", params=model.parameters())
     schedule = None
     if cfg.trainer.schedule == "cosine":
         schedule = torch.optim.lr_scheduler.CosineAnnealingLR(optimizer, T_max=epochs)
