@@ -6,7 +6,7 @@ TORCH_SPEC ?= torch==2.13.0
 STAMP := $(VENV)/.installed
 DEMO_DIR ?= demo_out
 
-.PHONY: setup test demo ui clean
+.PHONY: setup test test-slow demo ui lab bench bench-quick clean
 
 setup: $(STAMP)
 
@@ -22,6 +22,10 @@ $(STAMP): pyproject.toml
 test: setup
 	$(BIN)/python -m pytest -q tests
 
+# The notebooks at their default settings (minutes each; not part of `make test`).
+test-slow: setup
+	$(BIN)/python -m pytest -q tests -m slow
+
 demo: setup
 	bash scripts/demo.sh $(DEMO_DIR)
 
@@ -34,3 +38,11 @@ UI_PORT ?= 5000
 TRACKING_URI ?= sqlite:///$(CURDIR)/$(DEMO_DIR)/mlruns.db
 ui: setup
 	$(BIN)/mlflow ui --host $(UI_HOST) --port $(UI_PORT) --backend-store-uri $(TRACKING_URI)
+
+# JupyterLab on the loopback interface, with this project's environment as the kernel.
+LAB_HOST ?= 127.0.0.1
+LAB_PORT ?= 8888
+LAB_FLAGS ?= $(if $(filter 0,$(shell id -u)),--allow-root,)
+lab: setup
+	$(BIN)/python -m ipykernel install --sys-prefix --name wsad --display-name "wsad (.venv)" > /dev/null
+	$(BIN)/jupyter lab --ip $(LAB_HOST) --port $(LAB_PORT) --no-browser --notebook-dir notebooks $(LAB_FLAGS)

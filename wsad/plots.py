@@ -3,9 +3,6 @@ from __future__ import annotations
 
 from pathlib import Path
 
-import matplotlib
-
-matplotlib.use("Agg")
 import matplotlib.pyplot as plt  # noqa: E402
 import numpy as np  # noqa: E402
 import seaborn as sns  # noqa: E402
@@ -14,12 +11,13 @@ from sklearn.metrics import roc_curve  # noqa: E402
 from .evaluate import VideoScores  # noqa: E402
 
 
-def save_figure(fig, path: Path, dpi: int = 120) -> Path:
+def save_figure(fig, path: Path, dpi: int = 120, close: bool = True) -> Path:
     """Save through a temporary file and a rename: a killed run never leaves half a PNG."""
     path = Path(path)
     tmp = path.with_name(f".{path.stem}.tmp{path.suffix}")
     fig.savefig(tmp, dpi=dpi)
-    plt.close(fig)
+    if close:
+        plt.close(fig)
     tmp.replace(path)
     return path
 
@@ -69,3 +67,31 @@ def timeline_plot(videos: list[VideoScores], path: Path, title: str = "") -> Pat
         fig.suptitle(title, fontsize=9)
     fig.tight_layout()
     return save_figure(fig, path, 110)
+
+
+def stream_plot(store, videos: list[str], dims: int = 3):
+    """A few videos' features over time: some standardised dims (thin) and the
+    distance of each segment from the video's mean (thick); events shaded."""
+    sns.set_theme(style="white")
+    fig, axes = plt.subplots(len(videos), 1, figsize=(9, 1.7 * len(videos) + 0.6), squeeze=False)
+    for ax, v in zip(axes[:, 0], videos):
+        x = store.views(v)[0]
+        z = (x - x.mean(0)) / (x.std(0) + 1e-6)
+        t = np.arange(len(x))
+        for d in range(min(dims, x.shape[1])):
+            ax.plot(t, z[:, d], lw=0.6, alpha=0.6)
+        dist = np.linalg.norm(z, axis=1) / np.sqrt(x.shape[1])
+        ax.plot(t, 3 * (dist - dist.mean()), lw=1.6, color="k", label="distance from video mean (scaled)")
+        lab = store.frame_labels(v)
+        if lab is not None and lab.any():
+            seg = np.minimum(np.arange(len(lab)) // store.segment_frames, len(x) - 1)
+            hit = np.bincount(seg, weights=lab, minlength=len(x)) > 0
+            ax.fill_between(t, ax.get_ylim()[0], ax.get_ylim()[1], where=hit, color="tab:red",
+                            alpha=0.2, step="mid", label="event (ground truth)")
+        ax.set_title(f"{v} ({'anomalous' if store.label(v) else 'normal'}, camera {store.group(v)})",
+                     fontsize=8, loc="left")
+        ax.tick_params(labelsize=7)
+    axes[-1, 0].set_xlabel("segment (16 frames each)")
+    axes[0, 0].legend(fontsize=7, loc="upper right")
+    fig.tight_layout()
+    return fig
