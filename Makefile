@@ -6,7 +6,7 @@ TORCH_SPEC ?= torch==2.13.0
 STAMP := $(VENV)/.installed
 DEMO_DIR ?= demo_out
 
-.PHONY: setup test test-slow demo ui lab bench bench-quick clean
+.PHONY: setup test test-slow demo ui lab clean
 
 setup: $(STAMP)
 

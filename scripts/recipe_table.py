@@ -11,7 +11,6 @@ import sys
 import tempfile
 from pathlib import Path
 
-import numpy as np
 
 from wsad.report import load_runs
 from wsad.store import FeatureStore

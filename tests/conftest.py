@@ -6,6 +6,7 @@ import os
 from pathlib import Path
 
 import pytest
+import torch
 
 from wsad.synthetic import generate_store, load_scenario
 
@@ -40,3 +41,15 @@ def tree_hash(root: Path) -> dict[str, str]:
         elif p.is_file():
             out[str(p.relative_to(root))] = hashlib.sha256(p.read_bytes()).hexdigest()
     return out
+
+
+class CountTorchCalls(torch.overrides.TorchFunctionMode):
+    """Counts torch function calls (a per-bag Python loop would scale them with B)."""
+
+    def __init__(self):
+        super().__init__()
+        self.calls = 0
+
+    def __torch_function__(self, func, types, args=(), kwargs=None):
+        self.calls += 1
+        return func(*args, **(kwargs or {}))

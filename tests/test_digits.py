@@ -6,7 +6,6 @@ from __future__ import annotations
 
 import numpy as np
 import pandas as pd
-import pytest
 from sklearn.datasets import load_digits
 from sklearn.metrics import roc_auc_score
 

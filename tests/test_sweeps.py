@@ -2,7 +2,6 @@
 MLflow server, and the presets."""
 from __future__ import annotations
 
-import os
 import socket
 import sqlite3
 import subprocess

@@ -8,6 +8,7 @@ import torch
 import torch.nn.functional as F
 from sklearn.cluster import KMeans
 
+from conftest import CountTorchCalls
 from wsad.heads import GatedAttentionHead, MLPHead, TemporalConvHead
 from wsad.heads.base import HeadOutput
 from wsad.pooling import pool, topk_mean
@@ -195,18 +196,6 @@ def test_cluster_distance_gradients_and_direction():
         d.append(torch.linalg.norm(emb[i][a].mean(0) - emb[i][~a].mean(0)).item())
     ref = np.mean([max(0, 10 - d[0]), max(0, 10 - d[1]), d[2], d[3]])
     assert loss.item() == pytest.approx(ref, rel=1e-5)
-
-
-class CountTorchCalls(torch.overrides.TorchFunctionMode):
-    """Counts torch function calls (a per-bag Python loop would scale them with B)."""
-
-    def __init__(self):
-        super().__init__()
-        self.calls = 0
-
-    def __torch_function__(self, func, types, args=(), kwargs=None):
-        self.calls += 1
-        return func(*args, **(kwargs or {}))
 
 
 def test_cluster_term_has_no_python_loop_over_bags():

@@ -6,13 +6,12 @@ import subprocess
 import sys
 
 import mlflow
-import numpy as np
 import pandas as pd
 import pytest
 import torch
 from sklearn.metrics import roc_auc_score
 
-from conftest import make_store
+from conftest import CountTorchCalls, make_store
 from wsad.config import compose_config
 from wsad.errors import WsadError
 from wsad.train import train
@@ -85,16 +84,6 @@ def test_each_crop_as_its_own_bag(tmp_path):
     st = make_store(tmp_path / "mc", overrides=["crops=3"])
     _, res, _ = run(st, tmp_path, "topk", ["trainer.epochs=1", "data.crops=each"], tracking=False)
     assert 0 <= res["frame_auc"] <= 1
-
-
-class CountTorchCalls(torch.overrides.TorchFunctionMode):
-    def __init__(self):
-        super().__init__()
-        self.calls = 0
-
-    def __torch_function__(self, func, types, args=(), kwargs=None):
-        self.calls += 1
-        return func(*args, **(kwargs or {}))
 
 
 @pytest.mark.parametrize("recipe", ["topk", "windows", "mil_ranking"])

@@ -260,7 +260,7 @@ def write_report(rep: Report, out: Path, tracking_uri: str | None = None,
     paths = {}
     metrics = list(dict.fromkeys(rep.table.metric))
     n_seeds = rep.runs.groupby("variant").size()
-    md = [f"# Ablation report", "",
+    md = ["# Ablation report", "",
           f"{len(rep.runs)} finished runs, {rep.runs.variant.nunique()} variants "
           f"(grouped by {', '.join(rep.by) or 'nothing'}), seeds per variant "
           f"{n_seeds.min()}–{n_seeds.max()}. Baseline: **{rep.baseline}**.", "",

@@ -7,18 +7,17 @@ interrupted build leaves nothing half-written under ``out``.
 """
 from __future__ import annotations
 
-import json
 import os
-import re
 import shutil
-import tempfile
+import re
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
 
 from ..errors import WsadError
-from .format import FORMAT_VERSION, MANIFEST_COLUMNS
+from .atomic import new_store_dir, refuse_existing, write_store_json
+from .format import MANIFEST_COLUMNS
 
 LABEL_COLUMNS = ["video", "label", "split"]
 
@@ -46,9 +45,7 @@ def build_store(features_dir: str | Path, labels_csv: str | Path, out: str | Pat
     features_dir, out = Path(features_dir), Path(out)
     if not features_dir.is_dir():
         raise WsadError(f"features folder {features_dir} does not exist")
-    if out.exists() and (not out.is_dir() or any(out.iterdir())):
-        raise WsadError(f"--out {out} exists and is not empty; choose a new folder "
-                        "(wsad-index never overwrites)")
+    refuse_existing(out, "--out", "wsad-index")
     try:
         labels = pd.read_csv(labels_csv, dtype=str, keep_default_na=False)
     except (OSError, ValueError, pd.errors.ParserError) as err:
@@ -89,10 +86,7 @@ def build_store(features_dir: str | Path, labels_csv: str | Path, out: str | Pat
     if len(dims) != 1:
         raise WsadError(f"arrays have different feature dims {sorted(dims)}; one store holds one dim")
 
-    out.parent.mkdir(parents=True, exist_ok=True)
-    tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.", dir=out.parent))
-    try:
-        (tmp / "features").mkdir()
+    with new_store_dir(out, "--out", "wsad-index") as tmp:
         for r in rows:
             dst = tmp / "features" / f"{r['name']}.npy"
             if copy:
@@ -105,13 +99,5 @@ def build_store(features_dir: str | Path, labels_csv: str | Path, out: str | Pat
         man.to_csv(tmp / "manifest.csv", index=False)
         if ev is not None:
             ev.to_csv(tmp / "events.csv", index=False)
-        meta = {"format": FORMAT_VERSION, "dim": int(dims.pop()), "segment_frames": segment_frames,
-                "description": description or f"indexed from {features_dir}"}
-        (tmp / "store.json").write_text(json.dumps(meta, indent=2, sort_keys=True) + "\n")
-        if out.exists():
-            out.rmdir()
-        os.replace(tmp, out)
-    except BaseException:
-        shutil.rmtree(tmp, ignore_errors=True)
-        raise
+        write_store_json(tmp, dims.pop(), segment_frames, description or f"indexed from {features_dir}")
     return out

@@ -18,10 +18,6 @@ loading bay is routine, in a walkway it is an incident). Ground truth is written
 """
 from __future__ import annotations
 
-import json
-import os
-import shutil
-import tempfile
 import zlib
 from dataclasses import dataclass
 from pathlib import Path
@@ -32,8 +28,8 @@ from omegaconf import DictConfig, OmegaConf
 from scipy.signal import lfilter
 from tqdm.auto import tqdm
 
-from ..errors import WsadError
-from ..store.format import FORMAT_VERSION, MANIFEST_COLUMNS
+from ..store.atomic import new_store_dir, refuse_existing, write_store_json
+from ..store.format import MANIFEST_COLUMNS
 
 
 @dataclass
@@ -165,18 +161,13 @@ def generate_store(cfg: DictConfig, out: str | Path, progress: bool = True) -> P
     Deterministic by ``cfg.seed``: the same config gives a byte-identical store.
     """
     out = Path(out)
-    if out.exists() and (not out.is_dir() or any(out.iterdir())):
-        raise WsadError(f"out={out} exists and is not empty; choose a new folder "
-                        "(wsad-synth never overwrites)")
+    refuse_existing(out, "out=", "wsad-synth")
     sig = Signatures.build(cfg)
     plan = _plan(cfg)
     cam_vecs: dict[str, np.ndarray] = {}
-    out.parent.mkdir(parents=True, exist_ok=True)
-    tmp = Path(tempfile.mkdtemp(prefix=f".{out.name}.", dir=out.parent))
     manifest, events = [], []
     noise_rng = np.random.default_rng([int(cfg.seed), 13])
-    try:
-        (tmp / "features").mkdir()
+    with new_store_dir(out, "out=", "wsad-synth") as tmp:
         for k, row in enumerate(tqdm(plan, desc=f"synth {cfg.name}", unit="video",
                                      disable=not progress)):
             if row["group"] not in cam_vecs:
@@ -197,15 +188,7 @@ def generate_store(cfg: DictConfig, out: str | Path, progress: bool = True) -> P
                 events += [{"video": row["video"], "start": s, "end": e} for s, e in spans]
         pd.DataFrame(manifest, columns=MANIFEST_COLUMNS).to_csv(tmp / "manifest.csv", index=False)
         pd.DataFrame(events, columns=["video", "start", "end"]).to_csv(tmp / "events.csv", index=False)
-        meta = {"format": FORMAT_VERSION, "dim": int(cfg.dim),
-                "segment_frames": int(cfg.segment_frames),
-                "description": f"synthetic scenario {cfg.name}: {cfg.description}".strip(),
-                "scenario": OmegaConf.to_container(cfg, resolve=True)}
-        (tmp / "store.json").write_text(json.dumps(meta, indent=2, sort_keys=True) + "\n")
-        if out.exists():
-            out.rmdir()
-        os.replace(tmp, out)
-    except BaseException:
-        shutil.rmtree(tmp, ignore_errors=True)
-        raise
+        write_store_json(tmp, cfg.dim, cfg.segment_frames,
+                         f"synthetic scenario {cfg.name}: {cfg.description}".strip(),
+                         scenario=OmegaConf.to_container(cfg, resolve=True))
     return out

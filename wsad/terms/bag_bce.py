@@ -1,5 +1,4 @@
 """Bag-level binary cross-entropy of the pooled score."""
-import torch
 import torch.nn.functional as F
 
 from .base import TermInputs
