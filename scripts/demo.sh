@@ -1,10 +1,11 @@
 #!/usr/bin/env bash
-# make demo: from the default warehouse scenario to an ablation report.
+# make demo: from the default warehouse scenario to comparison tables and plots.
 #   1. generate the default scenario (a parcel-sorting warehouse, 12 cameras)
 #   2. check the store
-#   3. run a real ablation: the `bags` sweep preset (sequential vs shuffled windows vs whole
-#      videos vs anomalous/normal pairs) x 3 seeds, two jobs in parallel, logged to MLflow
-#   4. aggregate over seeds: table with intervals and paired tests, plus plots
+#   3. the three published recipes x 3 seeds, then a real ablation: the `bags` sweep preset
+#      (sequential vs shuffled windows vs whole videos vs anomalous/normal pairs) x 3 seeds,
+#      two jobs in parallel, all logged to MLflow
+#   4. aggregate over seeds: tables with intervals and paired tests, plus plots
 set -euo pipefail
 OUT=${1:-demo_out}
 JOBS=${JOBS:-2}
@@ -20,18 +21,29 @@ fi
 echo "== 2. checking the store"
 $BIN/wsad-check "$OUT/store"
 
+sweep() {  # name, then wsad-train overrides
+  local name=$1; shift
+  if [ -f "$OUT/.done_$name" ]; then
+    echo "   (already run; delete $OUT to start over)"
+    return
+  fi
+  $BIN/wsad-train -m data.root="$OUT/store" seed=0,1,2 trainer.progress=false \
+    hydra/launcher=joblib hydra.launcher.n_jobs="$JOBS" tracking.uri="$URI" \
+    tracking.experiment="$name" hydra.sweep.dir="$OUT/runs_$name" "$@" > "$OUT/$name.log" 2>&1 \
+    || { echo "sweep failed; see $OUT/$name.log"; tail -5 "$OUT/$name.log"; exit 1; }
+  grep -c "^wsad-train:" "$OUT/$name.log" | xargs -I{} echo "   {} runs finished (log: $OUT/$name.log)"
+  touch "$OUT/.done_$name"
+}
+
 echo
-echo "== 3. ablation: bag constructions x 3 seeds (recipe windows, $JOBS jobs in parallel)"
-if [ -f "$OUT/.sweep_done" ]; then
-  echo "   (already run; delete $OUT to start over)"
-else
-  $BIN/wsad-train -m data.root="$OUT/store" recipe=windows sweep=bags seed=0,1,2 \
-    trainer.progress=false hydra/launcher=joblib hydra.launcher.n_jobs="$JOBS" \
-    tracking.uri="$URI" tracking.experiment=demo hydra.sweep.dir="$OUT/runs" \
-    hydra.verbose=false > "$OUT/sweep.log" 2>&1 || { echo "sweep failed; see $OUT/sweep.log"; tail -5 "$OUT/sweep.log"; exit 1; }
-  grep -c "^wsad-train:" "$OUT/sweep.log" | xargs -I{} echo "   {} runs finished (log: $OUT/sweep.log)"
-  touch "$OUT/.sweep_done"
-fi
+echo "== 3a. the three recipes (topk, windows, mil_ranking) x 3 seeds, $JOBS jobs in parallel"
+sweep recipes recipe=topk,windows,mil_ranking
+$BIN/wsad-report --tracking-uri "$URI" --experiment recipes --baseline "recipe=topk" \
+  --out "$OUT/report_recipes" --no-plots 2>/dev/null | sed -n 1,5p
+
+echo
+echo "== 3b. ablation: bag constructions x 3 seeds (recipe windows, $JOBS jobs in parallel)"
+sweep demo recipe=windows sweep=bags
 
 echo
 echo "== 4. report (mean over seeds, 95% t-intervals, paired tests against shuffled windows)"
@@ -39,5 +51,6 @@ $BIN/wsad-report --tracking-uri "$URI" --experiment demo --baseline "bags=window
   --out "$OUT/report" 2>/dev/null
 echo
 echo "   full report with every metric: $OUT/report/report.md (also .csv and .tex)"
+echo "   recipes compared:               $OUT/report_recipes/report.md"
 echo "   open the runs side by side:     make ui   (MLflow UI on http://127.0.0.1:5000)"
 echo "   demo took $(( $(date +%s) - start )) s"
