@@ -68,7 +68,8 @@ def test_balanced_batches_and_pairs(store):
     assert seen == {i for i, it in enumerate(items) if it.label == larger}
     pairs = AnomalousNormalPairs(per_class=3)
     loader = BagLoader(store, pairs, Standardizer())
-    batch = next(loader.epoch(pairs.items(store, videos), 1, 0))
+    pair_items = pairs.items(store, videos)
+    batch = loader.collate([pair_items[i] for i in pairs.batches(pair_items, 1, 0)[0]])
     assert batch.x.shape[1] == 32 and batch.mask.all()
     assert (batch.y[batch.pairs[:, 0]] == 1).all() and (batch.y[batch.pairs[:, 1]] == 0).all()
 

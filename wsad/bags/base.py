@@ -99,8 +99,6 @@ class BagConstruction:
     def pairs(self, batch_items: list[Item]) -> torch.Tensor | None:
         return None
 
-    def describe(self) -> str:
-        return self.name
 
 
 def video_items(store: FeatureStore, videos: list[str]) -> list[Item]:
@@ -179,8 +177,3 @@ class BagLoader:
         return Batch(torch.from_numpy(x), torch.from_numpy(mask),
                      torch.tensor([it.label for it in items], dtype=torch.float32),
                      [it.video for it in items], self.bags.pairs(items))
-
-    def epoch(self, items: list[Item], epoch: int, seed: int):
-        """Yields the batches of one epoch (a plain generator: no worker processes)."""
-        for idx in self.bags.batches(items, epoch, seed):
-            yield self.collate([items[i] for i in idx])

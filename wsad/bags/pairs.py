@@ -20,6 +20,3 @@ class AnomalousNormalPairs(WholeVideo):
     def pairs(self, batch_items):
         p = len(batch_items) // 2
         return torch.stack([torch.arange(p), torch.arange(p, 2 * p)], dim=1)
-
-    def describe(self) -> str:
-        return f"pairs(chunks={self.chunks})"

@@ -28,6 +28,3 @@ class WholeVideo(BagConstruction):
 
     def batches(self, items, epoch, seed):
         return balanced_batches(items, self.per_class, epoch, seed)
-
-    def describe(self) -> str:
-        return f"whole(chunks={self.chunks})"

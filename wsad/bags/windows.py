@@ -50,6 +50,3 @@ class Windows(BagConstruction):
         if self.order == "shuffled":
             idx = np.random.default_rng([seed, epoch, 37]).permutation(len(items))
         return [list(idx[s:s + self.batch_size]) for s in range(0, len(idx), self.batch_size)]
-
-    def describe(self) -> str:
-        return f"windows(size={self.size}, stride={self.stride}, order={self.order})"
