@@ -70,19 +70,36 @@ def test_balanced_batches_and_pairs(store):
     loader = BagLoader(store, pairs, Standardizer())
     pair_items = pairs.items(store, videos)
     batch = loader.collate([pair_items[i] for i in pairs.batches(pair_items, 1, 0)[0]])
-    assert batch.x.shape[1] == 32 and batch.mask.all()
+    assert batch.mask.shape == (6, 32) and batch.mask.all() and batch.x.shape == (6 * 32, store.dim)
     assert (batch.y[batch.pairs[:, 0]] == 1).all() and (batch.y[batch.pairs[:, 1]] == 0).all()
 
 
-def test_whole_padding_and_mask(store):
+@pytest.mark.parametrize("cache_mb", [0, 512])
+def test_whole_packing_and_mask(store, cache_mb):
+    # Packed rows are the store's segments in order, whether read from the cache or the memory map.
     whole = WholeVideo(per_class=2)
-    loader = BagLoader(store, whole, Standardizer())
+    loader = BagLoader(store, whole, Standardizer(), cache_mb)
     items = whole.items(store, store.videos("train"))
     batch = loader.collate(items[:4])
+    assert len(batch.x) == int(batch.mask.sum())
+    padded = batch.padded()
     for i, it in enumerate(items[:4]):
         assert int(batch.mask[i].sum()) == store.n_segments(it.video)
-        np.testing.assert_allclose(batch.x[i][batch.mask[i]].numpy(), store.views(it.video)[0])
-        assert (batch.x[i][~batch.mask[i]] == 0).all()
+        np.testing.assert_array_equal(padded[i][batch.mask[i]].numpy(), store.views(it.video)[0])
+        assert (padded[i][~batch.mask[i]] == 0).all()
+    assert (loader.cache.used > 0) == (cache_mb > 0)
+
+
+def test_standardised_batches_match_numpy_on_both_paths(store):
+    # (x - mean) / std in float64 numpy is the reference; cached and uncached rows agree to float32.
+    videos = store.videos("train")
+    std = Standardizer.fit(store, videos)
+    items = Windows(size=8).items(store, videos)[:10]
+    ref = np.concatenate([(store.views(it.video)[0][it.start:it.start + it.length].astype(np.float64)
+                           - std.mean) / std.std for it in items])
+    for cache_mb in (0, 512):
+        got = BagLoader(store, Windows(size=8), std, cache_mb).collate(items).x.numpy()
+        np.testing.assert_allclose(got, ref, rtol=1e-5, atol=1e-5)
 
 
 @pytest.mark.parametrize("t", [5, 32, 45, 300])

@@ -10,7 +10,7 @@ import torch
 from hydra.utils import instantiate
 from omegaconf import DictConfig, OmegaConf
 
-from .bags.base import Standardizer, resample_chunks
+from .bags.base import ArrayCache, Standardizer, resample_chunks
 from .errors import WsadError
 from .evaluate import VideoScores, chunks_to_segments
 from .store.format import FeatureStore
@@ -39,35 +39,31 @@ def build_head(cfg: DictConfig, in_dim: int) -> torch.nn.Module:
 @torch.no_grad()
 def score_videos(model: torch.nn.Module, store: FeatureStore, videos: list[str],
                  std: Standardizer, chunks: int | None, max_segments: int = 65536,
-                 cache: dict | None = None) -> dict[str, np.ndarray]:
+                 cache: ArrayCache | None = None) -> dict[str, np.ndarray]:
     """Segment scores per video (mean over views), in eval mode. Videos are
-    read lazily, sorted by length and batched up to ``max_segments`` padded
-    segments, so padding stays small and memory bounded. ``cache`` (a dict)
-    keeps prepared arrays between calls (the per-epoch evaluation)."""
+    read lazily and scored in packed batches of up to ``max_segments`` real
+    segments (no padding is computed), so memory stays bounded. ``cache``
+    keeps prepared arrays between calls (the per-epoch evaluation) within its
+    budget."""
     was_training = model.training
     model.eval()
     out: dict[str, np.ndarray] = {}
 
     def prepare(v: str) -> np.ndarray:
-        if cache is not None and v in cache:
-            return cache[v]
+        x = cache.get(("eval", v)) if cache is not None else None
+        if x is not None:
+            return x
         x = std(store.views(v))                      # [V, T, D]
         if chunks:
             x = np.stack([resample_chunks(view, chunks) for view in x])
-        x = np.ascontiguousarray(x, dtype=np.float32)
         if cache is not None:
-            cache[v] = x
+            cache.put(("eval", v), x)
         return x
 
     def flush(group: list[tuple[str, np.ndarray]]) -> None:
-        rows, t = sum(len(a) for _, a in group), max(a.shape[1] for _, a in group)
-        x = np.zeros((rows, t, store.dim), np.float32)
-        mask = np.zeros((rows, t), bool)
-        r = 0
-        for _, a in group:
-            x[r:r + len(a), :a.shape[1]] = a
-            mask[r:r + len(a), :a.shape[1]] = True
-            r += len(a)
+        lengths = np.array([a.shape[1] for _, a in group for _ in range(len(a))])
+        x = np.concatenate([a.reshape(-1, store.dim) for _, a in group])
+        mask = np.arange(lengths.max())[None, :] < lengths[:, None]
         s = model(torch.from_numpy(x), torch.from_numpy(mask)).scores.numpy()
         r = 0
         for v, a in group:
@@ -76,14 +72,14 @@ def score_videos(model: torch.nn.Module, store: FeatureStore, videos: list[str],
             out[v] = chunks_to_segments(sc, store.n_segments(v)) if chunks else sc
 
     group: list[tuple[str, np.ndarray]] = []
-    rows = t = 0
+    rows = 0
     for v in sorted(videos, key=store.n_segments):
         a = prepare(v)
-        if group and (rows + len(a)) * max(t, a.shape[1]) > max_segments:
+        if group and rows + a.size // store.dim > max_segments:
             flush(group)
-            group, rows, t = [], 0, 0
+            group, rows = [], 0
         group.append((v, a))
-        rows, t = rows + len(a), max(t, a.shape[1])
+        rows += a.size // store.dim
     if group:
         flush(group)
     model.train(was_training)

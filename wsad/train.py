@@ -6,6 +6,7 @@ import math
 import os
 import random
 import tempfile
+import time
 import warnings
 from dataclasses import dataclass
 from pathlib import Path
@@ -17,7 +18,7 @@ from omegaconf import DictConfig, OmegaConf
 from tqdm.auto import tqdm
 
 from . import tracking
-from .bags.base import BagLoader, Standardizer
+from .bags.base import ArrayCache, BagLoader, Standardizer
 from .errors import WsadError
 from .evaluate import METRICS, compute_metrics, frame_table, grouped_bootstrap, roc_auc
 from .model_io import build_component, build_head, load_checkpoint, save_checkpoint, score_videos, video_scores
@@ -148,7 +149,7 @@ def build(cfg: DictConfig) -> Setup:
         raise WsadError(f"trainer.schedule={cfg.trainer.schedule!r}; use null or cosine")
     out_dir = Path(cfg.trainer.out_dir or _hydra_dir() or tempfile.mkdtemp(prefix="wsad-run-"))
     return Setup(store, fit_videos, val_videos, store.videos("test"), std, bags, pooling, k,
-                 bags.items(store, fit_videos), BagLoader(store, bags, std, float(cfg.data.cache_mb)),
+                 bags.items(store, fit_videos), BagLoader(store, bags, std, ArrayCache(float(cfg.data.cache_mb))),
                  model, build_terms(cfg), optimizer, schedule, epochs, out_dir)
 
 
@@ -167,7 +168,7 @@ def train(cfg: DictConfig, overrides: list[str] | None = None) -> float:
     s = build(cfg)
     store, model = s.store, s.model
     epoch0, batch0 = 1, 0
-    eval_cache: dict = {}  # prepared val/test arrays, reused every epoch
+    eval_cache = s.loader.cache  # one budget (data.cache_mb) for training bags and eval arrays
     best = (-math.inf, None, 0)  # (selection value, state dict, epoch)
     history: list[dict] = []
     partial = {"sums": {name: 0.0 for name in s.terms}, "total": 0.0, "n_batches": 0}
@@ -199,13 +200,15 @@ def train(cfg: DictConfig, overrides: list[str] | None = None) -> float:
                        total=s.epochs)
             for epoch in bar:
                 model.train()
+                started, segments = time.perf_counter(), 0
                 batches = s.bags.batches(s.items, epoch, int(cfg.seed))
                 for bi in range(batch0 if epoch == epoch0 else 0, len(batches)):
                     batch = s.loader.collate([s.items[i] for i in batches[bi]])
+                    segments += int(batch.mask.sum())
                     out = model(batch.x, batch.mask)
                     bag_scores = pool(s.pooling, out, batch.mask, s.k)
                     inp = TermInputs(out.scores, out.logits, batch.mask, batch.y, bag_scores,
-                                     out.embeddings, batch.pairs)
+                                     lambda: out.embeddings, batch.pairs)
                     loss = 0.0
                     for name, (w, term) in s.terms.items():
                         value = term(inp)
@@ -228,7 +231,11 @@ def train(cfg: DictConfig, overrides: list[str] | None = None) -> float:
                     s.schedule.step()
                 n = max(1, partial["n_batches"])
                 row = {"train_loss": partial["total"] / n,
-                       **{f"term/{k}": v / n for k, v in partial["sums"].items()}}
+                       **{f"term/{k}": v / n for k, v in partial["sums"].items()},
+                       # what an epoch costs: the benchmarks and sweep planning read these
+                       "time/train_s": time.perf_counter() - started, "train_segments": segments,
+                       "train_batches": len(batches)}
+                started = time.perf_counter()
                 partial = {"sums": {name: 0.0 for name in s.terms}, "total": 0.0, "n_batches": 0}
                 if s.val_videos:  # weak validation: video labels of held-out train cameras
                     vs = score_videos(model, store, s.val_videos, s.std, s.bags.chunks, cache=eval_cache)
@@ -238,6 +245,7 @@ def train(cfg: DictConfig, overrides: list[str] | None = None) -> float:
                 if epoch % int(cfg.trainer.eval_every) == 0 or epoch == s.epochs:
                     row.update(_quiet_metrics(video_scores(store, score_videos(
                         model, store, s.test_videos, s.std, s.bags.chunks, cache=eval_cache))))
+                row["time/eval_s"] = time.perf_counter() - started
                 history.append({"epoch": epoch, **row})
                 tracking.log_metrics(run, row, step=epoch)
                 chosen = row["weak_val_video_auc"] if cfg.trainer.select == "weak_val" else epoch

@@ -23,7 +23,8 @@ class Item:
 
 @dataclass
 class Batch:
-    """Padded bags. ``x`` [B, T, D], ``mask`` [B, T] (True = real segment),
+    """Packed bags. ``x`` [N, D] the real segments of bag 0, then bag 1, ...
+    (N = mask.sum()), ``mask`` [B, T] (True = real segment),
     ``y`` [B] video labels, ``pairs`` [P, 2] rows (anomalous, normal) or None."""
 
     x: torch.Tensor
@@ -31,6 +32,11 @@ class Batch:
     y: torch.Tensor
     videos: list[str]
     pairs: torch.Tensor | None = None
+
+    def padded(self) -> torch.Tensor:
+        """``x`` as [B, T, D] with zeros on padding."""
+        from ..heads.base import padded
+        return padded(self.x, self.mask)
 
 
 def resample_chunks(x: np.ndarray, n_chunks: int) -> np.ndarray:
@@ -47,10 +53,14 @@ def resample_chunks(x: np.ndarray, n_chunks: int) -> np.ndarray:
 
 
 class Standardizer:
-    """Per-dim (x - mean) / std fitted on training segments (streamed, float64)."""
+    """Per-dim (x - mean) / std fitted on training segments (streamed, float64).
+
+    Applied as (x - mean) * (1 / std) in float32, the same arithmetic in
+    training and scoring, so a bag gets the same numbers on either path."""
 
     def __init__(self, mean: np.ndarray | None = None, std: np.ndarray | None = None):
         self.mean, self.std = mean, std
+        self.inv = None if std is None else (1.0 / std.astype(np.float64)).astype(np.float32)
 
     @classmethod
     def fit(cls, store: FeatureStore, videos: list[str]) -> "Standardizer":
@@ -66,9 +76,19 @@ class Standardizer:
         return cls(mean.astype(np.float32), std.astype(np.float32))
 
     def __call__(self, x: np.ndarray) -> np.ndarray:
+        """A new float32 array (``x`` may be a read-only float16 memory map)."""
+        out = np.empty(x.shape, np.float32)
+        return self.into(x, out)
+
+    def into(self, x: np.ndarray, out: np.ndarray) -> np.ndarray:
+        """Standardise ``x`` (any float dtype) into the float32 array ``out``:
+        one read of the stored values, no temporary."""
         if self.mean is None:
-            return x
-        return (x - self.mean) / self.std
+            out[...] = x
+            return out
+        np.subtract(x, self.mean, out=out)
+        np.multiply(out, self.inv, out=out)
+        return out
 
     def state(self) -> dict:
         return {"mean": None if self.mean is None else torch.from_numpy(self.mean),
@@ -78,6 +98,27 @@ class Standardizer:
     def from_state(cls, state: dict) -> "Standardizer":
         m, s = state.get("mean"), state.get("std")
         return cls(None if m is None else m.numpy(), None if s is None else s.numpy())
+
+
+class ArrayCache:
+    """Prepared arrays kept in RAM up to a byte budget (first come, first kept).
+    One cache serves a run's training bags and its evaluation arrays, so
+    ``data.cache_mb`` bounds both together."""
+
+    def __init__(self, budget_mb: float = 512.0):
+        if budget_mb < 0:
+            from ..errors import WsadError
+            raise WsadError(f"data.cache_mb={budget_mb}; use 0 (no cache) or a positive size")
+        self.budget, self.used = int(budget_mb * 2 ** 20), 0
+        self.arrays: dict = {}
+
+    def get(self, key):
+        return self.arrays.get(key)
+
+    def put(self, key, x: np.ndarray) -> None:
+        if key not in self.arrays and self.used + x.nbytes <= self.budget:
+            self.arrays[key] = x
+            self.used += x.nbytes
 
 
 class BagConstruction:
@@ -135,45 +176,51 @@ def balanced_batches(items: list[Item], per_class: int, epoch: int, seed: int,
 
 
 class BagLoader:
-    """Reads items from the store (memory maps), standardises, resamples to
-    chunks when asked, and pads a batch. Prepared items are kept in RAM up to
-    ``cache_mb`` so later epochs skip the reads."""
+    """Reads items from the store (memory maps), standardises them, resamples
+    to chunks when asked, and packs a batch: ``x`` holds only the real
+    segments, so padding costs neither copies nor arithmetic.
+
+    Resampled bags are small and costly to make, so they go to ``cache`` and
+    later epochs skip the reads. Bags kept at full length are cached while the
+    budget lasts; past it they are read again from the memory map, which the
+    operating system keeps in its page cache (outside the process's own memory).
+    """
 
     def __init__(self, store: FeatureStore, construction: BagConstruction,
-                 standardizer: Standardizer, cache_mb: float = 1024.0):
+                 standardizer: Standardizer, cache: ArrayCache | float | None = None):
         self.store, self.bags, self.std = store, construction, standardizer
-        self.cache: dict[tuple, np.ndarray] = {}
-        self.cache_budget = int(cache_mb * 2 ** 20)
-        self.cache_used = 0
+        self.cache = cache if isinstance(cache, ArrayCache) else ArrayCache(
+            512.0 if cache is None else float(cache))
 
-    def _video_view(self, video: str, view: int) -> np.ndarray:
-        key = (video, view)
+    def _prepared(self, video: str, view: int) -> np.ndarray | None:
+        """The whole prepared view when it can be cached, else None."""
+        key = ("train", video, view)
         x = self.cache.get(key)
-        if x is None:
-            arr = self.store.views(video)[view]
-            x = self.std(arr)
-            if self.bags.chunks:
-                x = resample_chunks(x, self.bags.chunks)
-            x = np.ascontiguousarray(x, dtype=np.float32)
-            if self.cache_used + x.nbytes <= self.cache_budget:
-                self.cache[key] = x
-                self.cache_used += x.nbytes
+        if x is not None:
+            return x
+        t = self.store.n_segments(video)
+        rows = self.bags.chunks or t
+        if not self.bags.chunks and self.cache.used + rows * self.store.dim * 4 > self.cache.budget:
+            return None
+        x = self.std(self.store.view(video, view))
+        if self.bags.chunks:
+            x = resample_chunks(x, self.bags.chunks)
+        self.cache.put(key, x)
         return x
 
-    def features(self, item: Item) -> np.ndarray:
-        x = self._video_view(item.video, item.view)
-        if self.bags.chunks:
-            return x
-        return x[item.start:item.start + item.length]
-
     def collate(self, items: list[Item]) -> Batch:
-        feats = [self.features(it) for it in items]
-        t = max(len(f) for f in feats)
-        x = np.zeros((len(feats), t, self.store.dim), np.float32)
-        mask = np.zeros((len(feats), t), bool)
-        for i, f in enumerate(feats):
-            x[i, :len(f)] = f
-            mask[i, :len(f)] = True
+        lengths = np.array([self.bags.chunks or it.length for it in items])
+        x = np.empty((int(lengths.sum()), self.store.dim), np.float32)
+        r = 0
+        for it, n in zip(items, lengths):
+            prepared = self._prepared(it.video, it.view)
+            if prepared is None:  # straight from the memory map into the batch
+                raw = self.store.view(it.video, it.view)[it.start:it.start + it.length]
+                self.std.into(raw, x[r:r + n])
+            else:
+                x[r:r + n] = prepared if self.bags.chunks else prepared[it.start:it.start + it.length]
+            r += n
+        mask = np.arange(lengths.max())[None, :] < lengths[:, None]
         return Batch(torch.from_numpy(x), torch.from_numpy(mask),
                      torch.tensor([it.label for it in items], dtype=torch.float32),
                      [it.video for it in items], self.bags.pairs(items))

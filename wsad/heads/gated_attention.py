@@ -4,7 +4,7 @@ from __future__ import annotations
 import torch
 from torch import nn
 
-from .base import HeadOutput, check_sizes, mlp_layers, unpack
+from .base import Dropout, HeadOutput, check_sizes, mlp_layers, real_rows, unpack
 
 
 class GatedAttentionHead(nn.Module):
@@ -22,11 +22,11 @@ class GatedAttentionHead(nn.Module):
         self.V = nn.Linear(hidden[0], attention_dim)
         self.U = nn.Linear(hidden[0], attention_dim)
         self.w = nn.Linear(attention_dim, 1, bias=False)
-        self.drop = nn.Dropout(dropout)
+        self.drop = Dropout(dropout)
         self.score = mlp_layers(hidden, dropout)
 
     def forward(self, x, mask):
-        flat = self.embed(x[mask])                  # real segments only
+        flat = self.embed(real_rows(x, mask))                  # real segments only
         e = unpack(self.w(torch.tanh(self.V(flat)) * torch.sigmoid(self.U(flat))).squeeze(-1), mask)
         a = torch.softmax(e.masked_fill(~mask, float("-inf")), dim=1)
         h = unpack(flat, mask)

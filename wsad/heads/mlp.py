@@ -3,7 +3,7 @@ from __future__ import annotations
 
 from torch import nn
 
-from .base import HeadOutput, check_sizes, mlp_layers, unpack
+from .base import Dropout, HeadOutput, check_sizes, mlp_layers, real_rows, unpack
 
 
 class MLPHead(nn.Module):
@@ -15,12 +15,11 @@ class MLPHead(nn.Module):
         super().__init__()
         hidden = check_sizes(hidden)
         self.embed = nn.Sequential(nn.Linear(in_dim, hidden[0]), nn.ReLU())
-        self.drop = nn.Dropout(dropout)
+        self.drop = Dropout(dropout)
         self.score = mlp_layers(hidden, dropout)
 
     def forward(self, x, mask):
         # score real segments only: padding costs nothing (bags vary in length)
-        flat = x[mask]
-        h = self.embed(flat)
+        h = self.embed(real_rows(x, mask))
         logits = self.score(self.drop(h)).squeeze(-1)
-        return HeadOutput(logits=unpack(logits, mask), embeddings=unpack(h, mask))
+        return HeadOutput(logits=unpack(logits, mask), embeddings=h, mask=mask)

@@ -4,7 +4,7 @@ from __future__ import annotations
 from torch import nn
 
 from ..errors import WsadError
-from .base import HeadOutput, check_sizes, mlp_layers
+from .base import Dropout, HeadOutput, check_sizes, mlp_layers, padded
 
 
 class TemporalConvHead(nn.Module):
@@ -19,10 +19,10 @@ class TemporalConvHead(nn.Module):
             raise WsadError(f"head.kernel={kernel}; use an odd kernel size >= 1")
         self.conv = nn.Conv1d(in_dim, hidden[0], kernel, padding=kernel // 2)
         self.act = nn.ReLU()
-        self.drop = nn.Dropout(dropout)
+        self.drop = Dropout(dropout)
         self.score = mlp_layers(hidden, dropout)
 
     def forward(self, x, mask):
-        x = x * mask.unsqueeze(-1)
+        x = padded(x, mask)  # the convolution needs the time axis
         h = self.act(self.conv(x.transpose(1, 2)).transpose(1, 2))
         return HeadOutput(logits=self.score(self.drop(h)).squeeze(-1), embeddings=h)

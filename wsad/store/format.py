@@ -113,8 +113,19 @@ class FeatureStore:
         if arr.ndim == 2:
             return np.asarray(arr, dtype=np.float32)[None]
         if self.crops == "mean":
-            return arr.astype(np.float32).mean(axis=0, keepdims=True)
+            return arr.mean(axis=0, dtype=np.float32)[None]
         return np.asarray(arr, dtype=np.float32)
+
+    def view(self, video: str, k: int = 0) -> np.ndarray:
+        """View ``k`` of one video as ``[T, D]``, as stored where it can be
+        (a float16 or float32 memory map; slice it before converting), or the
+        float32 mean over crops in ``mean`` mode."""
+        arr = self.raw(video)
+        if arr.ndim == 2:
+            return arr
+        if self.crops == "mean":
+            return arr.mean(axis=0, dtype=np.float32)
+        return arr[k]
 
     def n_views(self, video: str) -> int:
         if video not in self._n_views:

@@ -13,8 +13,14 @@ class TermInputs:
     mask: torch.Tensor          # [B, T] True = real segment
     y: torch.Tensor             # [B] video labels (0/1)
     bag_scores: torch.Tensor    # [B] pooled scores
-    embeddings: torch.Tensor    # [B, T, H]
+    _embeddings: object         # [B, T, H], or a function giving them (built only if a term asks)
     pairs: torch.Tensor | None  # [P, 2] (anomalous row, normal row) or None
+
+    @property
+    def embeddings(self) -> torch.Tensor:
+        if callable(self._embeddings):
+            self._embeddings = self._embeddings()
+        return self._embeddings
 
 
 def bag_rows(inp: TermInputs, on: str) -> torch.Tensor:
