@@ -208,7 +208,7 @@ def train(cfg: DictConfig, overrides: list[str] | None = None) -> float:
                     out = model(batch.x, batch.mask)
                     bag_scores = pool(s.pooling, out, batch.mask, s.k)
                     inp = TermInputs(out.scores, out.logits, batch.mask, batch.y, bag_scores,
-                                     lambda: out.embeddings, batch.pairs)
+                                     lambda: out.embeddings, batch.pairs, lambda: out.packed_embeddings)
                     loss = 0.0
                     for name, (w, term) in s.terms.items():
                         value = term(inp)

@@ -32,8 +32,18 @@ class HeadOutput:
     @property
     def embeddings(self) -> torch.Tensor:
         if self._mask is not None and self._embeddings.dim() == 2:  # packed rows: scatter once
+            self._packed = self._embeddings
             self._embeddings = unpack(self._embeddings, self._mask)
         return self._embeddings
+
+    @property
+    def packed_embeddings(self) -> torch.Tensor:
+        """[N, H] embeddings of the real segments only (bag 0 first)."""
+        if getattr(self, "_packed", None) is not None:
+            return self._packed
+        if self._mask is not None and self._embeddings.dim() == 2:
+            return self._embeddings
+        return self.embeddings[self._mask] if self._mask is not None else None
 
 
 class Dropout(nn.Module):
