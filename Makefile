@@ -6,7 +6,7 @@ TORCH_SPEC ?= torch==2.13.0
 STAMP := $(VENV)/.installed
 DEMO_DIR ?= demo_out
 
-.PHONY: setup test test-slow demo ui lab clean
+.PHONY: setup test test-slow demo bench bench-quick ui lab clean
 
 setup: $(STAMP)
 
@@ -29,8 +29,17 @@ test-slow: setup
 demo: setup
 	bash scripts/demo.sh $(DEMO_DIR)
 
+# Performance at research scale (tens of minutes; writes benchmarks/results/full.json) and a
+# reduced run (about 3 minutes; benchmarks/results/quick.json). Stores are generated once
+# into benchmarks/.work (WSAD_BENCH_WORK to move them).
+bench: setup
+	cd benchmarks && ../$(BIN)/python run_all.py full
+
+bench-quick: setup
+	cd benchmarks && ../$(BIN)/python run_all.py quick
+
 clean:
-	rm -rf $(VENV) $(DEMO_DIR) .pytest_cache
+	rm -rf $(VENV) $(DEMO_DIR) .pytest_cache benchmarks/.work
 
 # MLflow UI on the loopback interface only (set UI_HOST to expose it deliberately).
 UI_HOST ?= 127.0.0.1

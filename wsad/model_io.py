@@ -38,7 +38,7 @@ def build_head(cfg: DictConfig, in_dim: int) -> torch.nn.Module:
 
 @torch.no_grad()
 def score_videos(model: torch.nn.Module, store: FeatureStore, videos: list[str],
-                 std: Standardizer, chunks: int | None, max_segments: int = 65536,
+                 std: Standardizer, chunks: int | None, max_segments: int = 16384,
                  cache: ArrayCache | None = None) -> dict[str, np.ndarray]:
     """Segment scores per video (mean over views), in eval mode. Videos are
     read lazily and scored in packed batches of up to ``max_segments`` real

@@ -1,0 +1,99 @@
+"""Run every benchmark at one size, check the goals, write JSON and print a table.
+
+    python benchmarks/run_all.py quick     # <= 3 minutes; writes results/quick.json
+    python benchmarks/run_all.py full      # research scale; writes results/full.json
+
+Each script runs in its own process (fresh memory, its own thread settings)
+and prints JSON; this merges them with the machine's details. Every goal is
+a ratio measured within one process, because these machines are noisy.
+"""
+from __future__ import annotations
+
+import json
+import subprocess
+import sys
+import time
+from pathlib import Path
+
+from tqdm.auto import tqdm
+
+from _common import ROOT, machine, size_arg
+
+SCRIPTS = ["train_floor.py", "cluster_term.py", "evaluation.py", "memory.py", "scaling.py"]
+
+# key, goal, "max" (value must be <=) or "min" (>=), what it measures
+GOALS = [
+    ("train.ratio_to_floor", 1.5, "max", "warm epoch / matrix-product floor (worst recipe)"),
+    ("cluster_term.speedup_vs_sklearn", 20.0, "min", "KMeans per video / batched term"),
+    ("cluster_term.step_share", 0.15, "max", "share of a training step spent in the term"),
+    ("bootstrap.ratio_to_single_auc", 20.0, "max", "1,000 grouped resamples / one roc_auc_score"),
+    ("memory.peak_anon_rss_gb", 1.5, "max", "peak anonymous RSS, one epoch on the multi-crop store"),
+    ("scaling.exponent", 1.1, "max", "epoch time ~ videos^e"),
+    ("eval.frames_per_s", None, None, "metrics + intervals, test frames per second"),
+]
+
+
+def lookup(result: dict, key: str):
+    node = result
+    for part in key.split("."):
+        node = node[part]
+    return node
+
+
+def check(result: dict) -> list[dict]:
+    rows = []
+    for key, goal, kind, what in GOALS:
+        value = lookup(result, key)
+        ok = None if goal is None else (value <= goal if kind == "max" else value >= goal)
+        rows.append({"key": key, "value": value, "goal": goal, "kind": kind, "met": ok, "what": what})
+    return rows
+
+
+def table(rows: list[dict], result: dict) -> str:
+    lines = ["| measure | value | goal | met |", "|---|---:|---:|:---:|"]
+    for r in rows:
+        goal = "" if r["goal"] is None else ("<= " if r["kind"] == "max" else ">= ") + f"{r['goal']:g}"
+        met = "" if r["met"] is None else ("yes" if r["met"] else "**no**")
+        lines.append(f"| `{r['key']}` ({r['what']}) | {r['value']:,.3g} | {goal} | {met} |")
+    lines += ["", "| recipe | warm epoch s | floor s | ratio | cold epoch ratio | segments |",
+              "|---|---:|---:|---:|---:|---:|"]
+    for name, v in result["train"]["recipes"].items():
+        lines.append(f"| {name} | {v['epoch_s']:.2f} | {v['floor_s']:.2f} | {v['ratio_to_floor']:.2f} "
+                     f"| {v['cold_ratio_to_floor']:.2f} | {v['segments']:,} |")
+    return "\n".join(lines)
+
+
+def main() -> int:
+    size = size_arg()
+    here = Path(__file__).resolve().parent
+    result: dict = {"size": size, "machine": machine(), "seconds": {}}
+    started = time.perf_counter()
+    for script in tqdm(SCRIPTS, desc=f"benchmarks ({size})", unit="script"):
+        t = time.perf_counter()
+        proc = subprocess.run([sys.executable, str(here / script), size], capture_output=True,
+                              text=True, cwd=here)
+        if proc.returncode != 0:
+            sys.stderr.write(proc.stderr[-3000:])
+            print(f"benchmark {script} failed (exit {proc.returncode}); its error is above", file=sys.stderr)
+            return 1
+        result.update(json.loads(proc.stdout))
+        result["seconds"][script] = round(time.perf_counter() - t, 1)
+    result["seconds"]["total"] = round(time.perf_counter() - started, 1)
+    rows = check(result)
+    result["goals"] = rows
+    result["all_goals_met"] = all(r["met"] for r in rows if r["met"] is not None)
+    out = here / "results" / f"{size}.json"
+    out.parent.mkdir(exist_ok=True)
+    tmp = out.with_suffix(".json.tmp")
+    tmp.write_text(json.dumps(result, indent=1, default=float) + "\n")
+    tmp.replace(out)
+    text = table(rows, result)
+    (here / "results" / f"{size}.md").write_text(text + "\n")
+    print(text)
+    print(f"\n{out.relative_to(ROOT)} written in {result['seconds']['total']:.0f} s; "
+          f"all goals met: {result['all_goals_met']}")
+    return 0
+
+
+if __name__ == "__main__":
+    sys.exit(main())
