@@ -199,7 +199,14 @@ def _tables(videos: list[VideoScores]):
         vid.append(np.full(len(uniq), i))
     keys, pos_w, neg_w, vid = map(np.concatenate, (keys, pos_w, neg_w, vid))
     glob, rank = np.unique(keys, return_inverse=True)
-    shape = (len(have), len(glob))
+    # Consecutive scores that hold no positive frame in any video are merged into one
+    # level: every positive is above (or below) all of them alike, so AUC and AP of every
+    # resample are unchanged, and the tables shrink by about the share of negative frames.
+    has_pos = np.bincount(rank, weights=pos_w, minlength=len(glob)) > 0
+    starts = has_pos | np.r_[True, has_pos[:-1]]
+    level = np.cumsum(starts) - 1
+    rank = level[rank]
+    shape = (len(have), int(level[-1]) + 1)
     pos = sparse.csr_matrix((pos_w, (vid, rank)), shape=shape)
     neg = sparse.csr_matrix((neg_w, (vid, rank)), shape=shape)
     return have, pos, neg

@@ -1,0 +1,39 @@
+"""Every benchmark script runs end to end at a tiny size, so none can rot.
+
+No timing is asserted (timings live in benchmarks/results/*.json); what is
+checked is that each goal's figure is produced and means what it says."""
+from __future__ import annotations
+
+import json
+import math
+import os
+import subprocess
+import sys
+from pathlib import Path
+
+ROOT = Path(__file__).resolve().parents[1]
+
+
+def test_every_benchmark_runs_at_tiny_size(tmp_path):
+    env = {**os.environ, "WSAD_BENCH_WORK": str(tmp_path / "work"),
+           "WSAD_BENCH_RESULTS": str(tmp_path / "results")}
+    proc = subprocess.run([sys.executable, "run_all.py", "tiny"], cwd=ROOT / "benchmarks", env=env,
+                          capture_output=True, text=True, timeout=900)
+    assert proc.returncode == 0, proc.stderr[-2000:]
+    result = json.loads((tmp_path / "results" / "tiny.json").read_text())
+    for goal in result["goals"]:
+        assert math.isfinite(goal["value"]), goal
+    assert set(result["train"]["recipes"]) == {"topk", "windows", "mil_ranking"}
+    for rec in result["train"]["recipes"].values():
+        # the floor is measured over the epoch's own segment count, and is a real time
+        assert rec["segments"] > 0 and rec["floor_s"] > 0
+        assert rec["ratio_to_floor"] == rec["epoch_s"] / rec["floor_s"]
+    # the fast bootstrap equals the per-resample recomputation on the same indices
+    assert result["bootstrap"]["max_diff_vs_naive"] < 1e-9
+    # the memory child really trained: more anonymous memory at peak than after imports
+    assert result["memory"]["peak_anon_rss_gb"] > result["memory"]["after_imports_gb"]
+    assert result["memory"]["crops"] == 3 and result["memory"]["store_gb"] > 0
+    assert result["scaling"]["videos"] == sorted(result["scaling"]["videos"])
+    assert 0 < result["cluster_term"]["inertia_ratio"] < 2
+    assert "| measure | value | goal | met |" in proc.stdout
+    assert result["machine"]["cpus"] >= 1
