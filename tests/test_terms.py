@@ -226,17 +226,20 @@ def test_batched_two_means_equals_one_bag_at_a_time():
 
 
 def test_sketched_two_means_near_sklearn_on_digits():
-    # Reference: sklearn.cluster.KMeans(n_clusters=2, n_init=10) on scikit-learn's bundled
-    # digits (real 64-d data), in bags of 150 images; the sketch (16 of 64 dims) may cost
-    # a little inertia but not much (within 5% here; common practice for sketched k-means).
+    # Reference: sklearn.cluster.KMeans(n_clusters=2, n_init=10) on embeddings of
+    # scikit-learn's bundled digits (real data) by a random ReLU layer 64 -> 256, as an
+    # untrained head's first layer gives, in bags of 150 images. The partition found on a
+    # 16-d sketch with 4 inits costs at most 3% more inertia than scikit-learn's best of 10
+    # (measured 2.1%; the full-space search with 4 inits gives 0.2%).
     from sklearn.datasets import load_digits
 
     from wsad.terms.cluster_distance import sketched_two_means
 
-    x = load_digits().data.astype(np.float32)[:1500]
-    bags = torch.from_numpy(x).view(10, 150, 64)
+    g = torch.Generator().manual_seed(0)
+    pixels = torch.from_numpy(load_digits().data.astype(np.float32)[:1500])
+    x = torch.relu(pixels @ torch.randn(64, 256, generator=g) / 8).numpy()
     mask = torch.ones(10, 150, dtype=torch.bool)
-    assign, _ = sketched_two_means(bags.reshape(-1, 64), mask, 16, 1, 50, 1e-4)
+    assign, _ = sketched_two_means(torch.from_numpy(x), mask, 16, 4, 50, 1e-4)
     assign = assign.view(10, 150).numpy()
     ours = refs = 0.0
     for i in range(10):
@@ -245,7 +248,7 @@ def test_sketched_two_means_near_sklearn_on_digits():
             part = xi[assign[i] == k]
             ours += ((part - part.mean(0)) ** 2).sum() if len(part) else 0.0
         refs += KMeans(2, n_init=10, random_state=0).fit(xi).inertia_
-    assert ours <= refs * 1.05
+    assert ours <= refs * 1.03
 
 
 def test_cluster_distance_on_packed_bags_of_varied_length():
