@@ -72,7 +72,7 @@ def step_share(root) -> dict:
         s.optimizer.step()
 
     with_t, without = [], []
-    for _ in range(5):  # interleaved, so drifts in machine speed hit both alike
+    for _ in range(12):  # interleaved, so drifts in machine speed hit both alike
         with_t.append(best_of(lambda: step(True), 1))
         without.append(best_of(lambda: step(False), 1))
     w, wo = min(with_t), min(without)

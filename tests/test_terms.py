@@ -199,7 +199,7 @@ def test_cluster_distance_gradients_and_direction():
 
 
 def test_cluster_term_has_no_python_loop_over_bags():
-    # The term loops over blocks of 8 bags at most (the full-size products), never over
+    # The term loops over blocks of <= 2048 segments (the full-size products), never over
     # bags: 8x the bags costs far less than 8x the torch calls.
     counts = []
     for b in (8, 64):

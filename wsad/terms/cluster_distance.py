@@ -187,15 +187,19 @@ def sketched_two_means(rows: torch.Tensor, mask: torch.Tensor, dim: int, n_init:
     return a[mask], inertia
 
 
-def _bag_spans(mask: torch.Tensor, per_block: int):
-    """Consecutive groups of ``per_block`` bags: (first bag, last bag + 1, first row, last row + 1)."""
+def _bag_spans(mask: torch.Tensor, max_rows: int = 2048):
+    """Consecutive bags grouped up to ``max_rows`` segments (at least one bag):
+    (first bag, last bag + 1, first row, last row + 1). A block's product costs
+    bags x rows, so a row budget keeps it near one pass whatever the lengths."""
     lengths = mask.sum(1).tolist()
-    starts = [0]
-    for n in lengths:
-        starts.append(starts[-1] + n)
-    for i in range(0, len(lengths), per_block):
-        j = min(len(lengths), i + per_block)
-        yield i, j, starts[i], starts[j]
+    i, r0 = 0, 0
+    while i < len(lengths):
+        j, r1 = i + 1, r0 + lengths[i]
+        while j < len(lengths) and r1 + lengths[j] <= max_rows:
+            r1 += lengths[j]
+            j += 1
+        yield i, j, r0, r1
+        i, r0 = j, r1
 
 
 class ClusterDistance:
@@ -229,13 +233,13 @@ class ClusterDistance:
         n0 = lengths.to(rows.dtype) - n1
         # c1 - c0 = sum_t coef_t x_t with coef = w1 / n1 - w0 / n0, per bag; computed as a
         # product of a [bags, rows] coefficient block with a contiguous slice of rows
-        # (a few bags per block: no gather, no padding, and a cheap backward)
+        # (blocks of <= 2048 rows: no gather, no padding, and a cheap backward)
         coef = w1 / n1.clamp(min=1)[bag] - (1 - w1) / n0.clamp(min=1)[bag]
         if bool((lengths == mask.shape[1]).all()):  # equal lengths (e.g. chunked bags): one bmm
             b, t = mask.shape
             diff = torch.bmm(coef.view(b, 1, t), rows.view(b, t, -1))[:, 0]
         else:
-            spans = list(_bag_spans(mask, 8))
+            spans = list(_bag_spans(mask))
             # split, not slicing: its backward is one concatenation, not a zero-filled
             # full-size gradient per block
             parts = rows.split([r1 - r0 for _, _, r0, r1 in spans])
