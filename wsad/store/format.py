@@ -73,6 +73,7 @@ class FeatureStore:
         for v, s, e in zip(self.events["video"], self.events["start"], self.events["end"]):
             self._spans.setdefault(v, []).append((int(s), int(e)))
         self._n_seg: dict[str, int] = {}
+        self._maps: dict[str, np.ndarray] = {}
         self._n_views: dict[str, int] = {}
 
     # -- manifest helpers -------------------------------------------------
@@ -94,8 +95,15 @@ class FeatureStore:
 
     # -- arrays -----------------------------------------------------------
     def raw(self, video: str) -> np.ndarray:
-        """The video's array as stored (memory map; float16 or float32)."""
-        return np.load(self.root / self._file[video], mmap_mode="r")
+        """The video's array as stored (memory map; float16 or float32).
+
+        Maps are kept open: opening one costs a header parse and a system call,
+        which a batch of 32 windows would otherwise pay 32 times. Their pages
+        belong to the operating system's file cache, not to the process."""
+        arr = self._maps.get(video)
+        if arr is None:
+            arr = self._maps[video] = np.load(self.root / self._file[video], mmap_mode="r")
+        return arr
 
     def _shape(self, video: str) -> None:
         arr = self.raw(video)
