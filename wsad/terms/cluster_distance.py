@@ -13,7 +13,8 @@ BLOCK_BYTES = 4 * 2 ** 20
 
 
 @torch.no_grad()
-def _lloyd(e: torch.Tensor, mask: torch.Tensor, n_init: int, n_iter: int, tol: float = 0.0):
+def _lloyd(e: torch.Tensor, mask: torch.Tensor, n_init: int, n_iter: int, tol: float = 0.0,
+           need_inertia: bool = True):
     """k = 2 Lloyd iterations on a padded block e [B, T, H] (zeros on padding).
 
     With centres c0, c1, segment x joins cluster 1 iff x.u > (||c1||^2 - ||c0||^2) / 2
@@ -74,6 +75,8 @@ def _lloyd(e: torch.Tensor, mask: torch.Tensor, n_init: int, n_iter: int, tol: f
         c0, c1 = new0, new1
         if limit is not None and (moved <= limit).all():
             break
+    if not need_inertia and assign.shape[2] == 1:  # one init: nothing to choose between
+        return torch.from_numpy(np.ascontiguousarray(assign[:, :, 0])), None
     w1 = assign.transpose(0, 2, 1)
     n1 = w1.sum(-1).astype(np.float64)
     n0 = n.astype(np.float64)[:, None] - n1
@@ -171,7 +174,7 @@ def count_sketch(rows: torch.Tensor, dim: int) -> torch.Tensor:
 
 @torch.no_grad()
 def sketched_two_means(rows: torch.Tensor, mask: torch.Tensor, dim: int, n_init: int, n_iter: int,
-                       tol: float = 1e-4):
+                       tol: float = 1e-4, need_inertia: bool = True):
     """k = 2 k-means of every bag on a ``dim``-wide count sketch of the packed
     rows [N, H]: one pass over the embeddings, then Lloyd on data H/dim times
     smaller, all bags in one batch. Returns (assign [N] bool, sketch inertia [B]).
@@ -181,9 +184,9 @@ def sketched_two_means(rows: torch.Tensor, mask: torch.Tensor, dim: int, n_init:
     sk = count_sketch(rows, dim)
     lengths = mask.sum(1)
     if bool((lengths == mask.shape[1]).all()):  # equal lengths: the packed rows are the padded block
-        a, inertia = _lloyd(sk.view(*mask.shape, dim), mask, n_init, n_iter, tol)
-    else:
-        a, inertia = _lloyd(unpack(sk, mask), mask, n_init, n_iter, tol)
+        a, inertia = _lloyd(sk.view(*mask.shape, dim), mask, n_init, n_iter, tol, need_inertia)
+        return a.view(-1), inertia
+    a, inertia = _lloyd(unpack(sk, mask), mask, n_init, n_iter, tol, need_inertia)
     return a[mask], inertia
 
 
@@ -225,7 +228,7 @@ class ClusterDistance:
     def __call__(self, inp: TermInputs):
         rows, mask = inp.packed_embeddings, inp.mask      # rows [N, H]: real segments only
         assign, _ = sketched_two_means(rows.detach(), mask, self.sketch_dim, self.n_init, self.n_iter,
-                                       self.tol)
+                                       self.tol, need_inertia=False)
         lengths = mask.sum(1)
         bag = torch.repeat_interleave(torch.arange(len(lengths), device=rows.device), lengths)
         w1 = assign.to(rows.dtype)
