@@ -277,3 +277,27 @@ def unpack_bool(flat, mask):
     out = torch.zeros(mask.shape, dtype=torch.bool)
     out[mask] = flat
     return out
+
+
+def test_dropout_keeps_torch_dropout_contract():
+    # Reference: torch.nn.Dropout's contract (inverted dropout, Srivastava et al., 2014):
+    # values kept with probability 1 - p and scaled by 1 / (1 - p), so E[out] = x; identity
+    # in eval mode; the gradient is the same mask times the scale; reproducible from torch's seed.
+    from wsad.heads.base import Dropout
+
+    x = torch.ones(400, 500, requires_grad=True)
+    drop = Dropout(0.6)
+    torch.manual_seed(1)
+    out = drop(x)
+    kept = out != 0
+    assert abs(kept.float().mean().item() - 0.4) < 0.005          # 200,000 draws: ~4 sd
+    assert torch.allclose(out[kept], torch.full_like(out[kept], 1 / 0.4), rtol=1e-4)
+    assert abs(out.mean().item() - 1.0) < 0.02
+    ref = torch.nn.Dropout(0.6)(torch.ones(400, 500))
+    assert abs((ref != 0).float().mean().item() - kept.float().mean().item()) < 0.01
+    out.sum().backward()
+    assert torch.equal(x.grad, out.detach())                     # d out / d x = mask * scale
+    torch.manual_seed(1)
+    assert torch.equal(drop(x.detach()), out.detach())           # same seed, same mask
+    drop.eval()
+    assert torch.equal(drop(x.detach()), x.detach())
