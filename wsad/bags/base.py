@@ -1,6 +1,7 @@
 """The parts every bag construction shares: items, batches, reading and padding."""
 from __future__ import annotations
 
+import warnings
 from dataclasses import dataclass
 
 import numpy as np
@@ -61,6 +62,8 @@ class Standardizer:
     def __init__(self, mean: np.ndarray | None = None, std: np.ndarray | None = None):
         self.mean, self.std = mean, std
         self.inv = None if std is None else (1.0 / std.astype(np.float64)).astype(np.float32)
+        self._mean_t = None if mean is None else torch.from_numpy(mean)
+        self._inv_t = None if std is None else torch.from_numpy(self.inv)
 
     @classmethod
     def fit(cls, store: FeatureStore, videos: list[str]) -> "Standardizer":
@@ -81,13 +84,13 @@ class Standardizer:
         return self.into(x, out)
 
     def into(self, x: np.ndarray, out: np.ndarray) -> np.ndarray:
-        """Standardise ``x`` (any float dtype) into the float32 array ``out``:
-        one read of the stored values, no temporary."""
-        if self.mean is None:
-            out[...] = x
-            return out
-        np.subtract(x, self.mean, out=out)
-        np.multiply(out, self.inv, out=out)
+        """Standardise ``x`` (any float dtype) into the float32 array ``out``
+        in place, no temporary. Torch does the float16 conversion and the
+        arithmetic: several times faster than NumPy's on 2 cores."""
+        t = torch.from_numpy(out)
+        t.copy_(_readonly_tensor(x))
+        if self.mean is not None:
+            t.sub_(self._mean_t).mul_(self._inv_t)
         return out
 
     def state(self) -> dict:
@@ -98,6 +101,15 @@ class Standardizer:
     def from_state(cls, state: dict) -> "Standardizer":
         m, s = state.get("mean"), state.get("std")
         return cls(None if m is None else m.numpy(), None if s is None else s.numpy())
+
+
+def _readonly_tensor(x: np.ndarray) -> torch.Tensor:
+    """A tensor over ``x`` without a copy; read-only memory maps are only read here."""
+    if x.flags.writeable:
+        return torch.from_numpy(x)
+    with warnings.catch_warnings():
+        warnings.simplefilter("ignore", UserWarning)  # torch warns that it cannot protect them
+        return torch.from_numpy(x)
 
 
 class ArrayCache:
@@ -198,9 +210,8 @@ class BagLoader:
         x = self.cache.get(key)
         if x is not None:
             return x
-        t = self.store.n_segments(video)
-        rows = self.bags.chunks or t
-        if not self.bags.chunks and self.cache.used + rows * self.store.dim * 4 > self.cache.budget:
+        full_size = self.store.n_segments(video) * self.store.dim * 4
+        if not self.bags.chunks and self.cache.used + full_size > self.cache.budget:
             return None
         x = self.std(self.store.view(video, view))
         if self.bags.chunks:
@@ -210,14 +221,9 @@ class BagLoader:
 
     def _from_maps(self, items: list[Item]) -> torch.Tensor:
         """A batch with nothing cached: the stored rows are concatenated as
-        stored (float16 stays half the bytes), then converted and standardised
-        by torch in place, in one multi-threaded pass each."""
-        x = torch.from_numpy(np.concatenate(
-            [self.store.view(it.video, it.view)[it.start:it.start + it.length] for it in items]))
-        x = x.float()
-        if self.std.mean is not None:
-            x.sub_(torch.from_numpy(self.std.mean)).mul_(torch.from_numpy(self.std.inv))
-        return x
+        stored (float16 stays half the bytes), then standardised in one pass."""
+        return torch.from_numpy(self.std(np.concatenate(
+            [self.store.view(it.video, it.view)[it.start:it.start + it.length] for it in items])))
 
     def collate(self, items: list[Item]) -> Batch:
         lengths = np.array([self.bags.chunks or it.length for it in items])

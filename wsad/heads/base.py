@@ -23,7 +23,10 @@ class HeadOutput:
                  attention: torch.Tensor | None = None, bag_logits: torch.Tensor | None = None,
                  mask: torch.Tensor | None = None):
         self.logits, self.attention, self.bag_logits = logits, attention, bag_logits
-        self._embeddings, self._mask = embeddings, mask
+        packed = mask is not None and embeddings.dim() == 2
+        self._mask = mask
+        self._packed = embeddings if packed else None          # [N, H] or None
+        self._padded = None if packed else embeddings          # [B, T, H], built on first use
 
     @property
     def scores(self) -> torch.Tensor:
@@ -31,19 +34,15 @@ class HeadOutput:
 
     @property
     def embeddings(self) -> torch.Tensor:
-        if self._mask is not None and self._embeddings.dim() == 2:  # packed rows: scatter once
-            self._packed = self._embeddings
-            self._embeddings = unpack(self._embeddings, self._mask)
-        return self._embeddings
+        if self._padded is None:  # packed rows: scatter once
+            self._padded = unpack(self._packed, self._mask)
+        return self._padded
 
     @property
-    def packed_embeddings(self) -> torch.Tensor:
-        """[N, H] embeddings of the real segments only (bag 0 first)."""
-        if getattr(self, "_packed", None) is not None:
-            return self._packed
-        if self._mask is not None and self._embeddings.dim() == 2:
-            return self._embeddings
-        return self.embeddings[self._mask] if self._mask is not None else None
+    def packed_embeddings(self) -> torch.Tensor | None:
+        """[N, H] embeddings of the real segments only (bag 0 first), or None
+        when the head gave them padded (:class:`TermInputs` then gathers them)."""
+        return self._packed
 
 
 class Dropout(nn.Module):

@@ -118,10 +118,8 @@ class FeatureStore:
     def views(self, video: str) -> np.ndarray:
         """``[V, T, D]`` float32 views of one video (see class docstring)."""
         arr = self.raw(video)
-        if arr.ndim == 2:
-            return np.asarray(arr, dtype=np.float32)[None]
-        if self.crops == "mean":
-            return arr.mean(axis=0, dtype=np.float32)[None]
+        if arr.ndim == 2 or self.crops == "mean":
+            return np.asarray(self.view(video), dtype=np.float32)[None]
         return np.asarray(arr, dtype=np.float32)
 
     def view(self, video: str, k: int = 0) -> np.ndarray:

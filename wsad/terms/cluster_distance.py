@@ -7,11 +7,6 @@ import torch
 from ..heads.base import unpack
 from .base import TermInputs
 
-# Bags are clustered in blocks of about this many bytes of embeddings, so every
-# Lloyd iteration of a block reads data already in the CPU cache.
-BLOCK_BYTES = 4 * 2 ** 20
-
-
 @torch.no_grad()
 def _lloyd(e: torch.Tensor, mask: torch.Tensor, n_init: int, n_iter: int, tol: float = 0.0,
            need_inertia: bool = True):
@@ -28,8 +23,8 @@ def _lloyd(e: torch.Tensor, mask: torch.Tensor, n_init: int, n_iter: int, tol: f
     partition with its means as centres is sum ||x||^2 - sum_k ||s_k||^2 / n_k
     (s_k: member sum), so it needs no extra pass.
 
-    Runs in NumPy: the arrays here are small (a sketch, or one cache-sized
-    block), where NumPy's per-call cost is a fraction of torch's.
+    Runs in NumPy: the arrays here are small (a sketch, or a block of <= 2048
+    segments), where NumPy's per-call cost is a fraction of torch's.
     """
     b, t, h = e.shape
     noise = torch.rand(n_init - 1, b, t).numpy() if n_init > 1 else None
@@ -90,55 +85,39 @@ def _lloyd(e: torch.Tensor, mask: torch.Tensor, n_init: int, n_iter: int, tol: f
             torch.from_numpy(inertia[rows, best]).to(e.dtype))
 
 
-def _blocks(mask: torch.Tensor, width: int, itemsize: int, block_bytes: int):
-    """Groups of bags of similar length, ~``block_bytes`` of padded embeddings
-    each: (bag indices, block mask [b, T], packed row index or a slice when the
-    bags are consecutive rows of one length, which needs no copy)."""
-    lengths = mask.sum(1)
-    starts = torch.cumsum(lengths, 0) - lengths
-    order = torch.argsort(lengths, stable=True)
-    ls, st, b, i = lengths[order].tolist(), starts[order].tolist(), len(lengths), 0
-    while i < b:
-        j = i + 1  # grow while the padded block fits (always at least one bag)
-        while j < b and (j + 1 - i) * ls[j] * width * itemsize <= block_bytes:
+def _bag_spans(mask: torch.Tensor, max_rows: int = 2048):
+    """Consecutive bags grouped up to ``max_rows`` segments (at least one bag):
+    (first bag, last bag + 1, first row, last row + 1). A block's product costs
+    bags x rows, so a row budget keeps it near one pass whatever the lengths."""
+    lengths = mask.sum(1).tolist()
+    i, r0 = 0, 0
+    while i < len(lengths):
+        j, r1 = i + 1, r0 + lengths[i]
+        while j < len(lengths) and r1 + lengths[j] <= max_rows:
+            r1 += lengths[j]
             j += 1
-        bags = order[i:j]
-        bl = lengths[bags]
-        bmask = torch.arange(ls[j - 1], device=mask.device)[None, :] < bl[:, None]
-        if ls[i] == ls[j - 1] and st[j - 1] - st[i] == (j - 1 - i) * ls[i]:
-            where = slice(st[i], st[j - 1] + ls[i])
-        else:
-            where = torch.repeat_interleave(starts[bags] - torch.cumsum(bl, 0) + bl, bl) \
-                + torch.arange(int(bl.sum()), device=mask.device)
-        yield bags, bmask, where
-        i = j
-
-
-def _block_rows(rows: torch.Tensor, bmask: torch.Tensor, where) -> torch.Tensor:
-    """The block's padded embeddings [b, T, H] (a view when ``where`` is a slice)."""
-    if isinstance(where, slice):
-        return rows[where].view(*bmask.shape, rows.shape[1])
-    return unpack(rows[where], bmask)
+        yield i, j, r0, r1
+        i, r0 = j, r1
 
 
 @torch.no_grad()
-def two_means_packed(rows: torch.Tensor, mask: torch.Tensor, n_init: int = 4, n_iter: int = 30,
-                     block_bytes: int = BLOCK_BYTES):
+def two_means_packed(rows: torch.Tensor, mask: torch.Tensor, n_init: int = 4, n_iter: int = 30):
     """k = 2 k-means of every bag, from packed rows [N, H] (the real segments
     of bag 0, then bag 1, ...) and mask [B, T]. Returns (assign [N] bool:
     member of cluster 1, inertia [B]).
 
-    Bags are sorted by length and clustered in blocks of ~``block_bytes``,
-    each padded only to its own longest bag: the iterations then run on data
-    in the cache, and one long bag does not pad the whole batch. Within a
-    block there is no Python loop over bags.
+    Consecutive bags are clustered in blocks of <= 2048 segments, each padded
+    only to its own longest bag, so the iterations run on data in the CPU
+    cache and one long bag does not pad the whole batch. Within a block there
+    is no Python loop over bags.
     """
     assign = torch.zeros(len(rows), dtype=torch.bool, device=rows.device)
     inertia = torch.zeros(len(mask), dtype=rows.dtype, device=rows.device)
-    for bags, bmask, where in _blocks(mask, rows.shape[1], rows.element_size(), block_bytes):
-        a, inr = _lloyd(_block_rows(rows, bmask, where), bmask, n_init, n_iter)
-        assign[where] = a[bmask]
-        inertia[bags] = inr
+    for i, j, r0, r1 in _bag_spans(mask):
+        bmask = mask[i:j, :int(mask[i:j].sum(1).max())]
+        a, inr = _lloyd(unpack(rows[r0:r1], bmask), bmask, n_init, n_iter)
+        assign[r0:r1] = a[bmask]
+        inertia[i:j] = inr
     return assign, inertia
 
 
@@ -188,21 +167,6 @@ def sketched_two_means(rows: torch.Tensor, mask: torch.Tensor, dim: int, n_init:
         return a.view(-1), inertia
     a, inertia = _lloyd(unpack(sk, mask), mask, n_init, n_iter, tol, need_inertia)
     return a[mask], inertia
-
-
-def _bag_spans(mask: torch.Tensor, max_rows: int = 2048):
-    """Consecutive bags grouped up to ``max_rows`` segments (at least one bag):
-    (first bag, last bag + 1, first row, last row + 1). A block's product costs
-    bags x rows, so a row budget keeps it near one pass whatever the lengths."""
-    lengths = mask.sum(1).tolist()
-    i, r0 = 0, 0
-    while i < len(lengths):
-        j, r1 = i + 1, r0 + lengths[i]
-        while j < len(lengths) and r1 + lengths[j] <= max_rows:
-            r1 += lengths[j]
-            j += 1
-        yield i, j, r0, r1
-        i, r0 = j, r1
 
 
 class ClusterDistance:
