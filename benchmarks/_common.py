@@ -71,6 +71,11 @@ def machine() -> dict:
     info = {"python": platform.python_version(), "torch": torch.__version__,
             "platform": platform.platform(), "cpus": os.cpu_count(),
             "torch_threads": torch.get_num_threads()}
+    for lib in ("numpy", "sklearn"):  # the references' speed moves with their versions
+        try:
+            info[lib] = __import__(lib).__version__
+        except ImportError:
+            info[lib] = None
     try:
         for line in Path("/proc/cpuinfo").read_text().splitlines():
             if line.startswith("model name"):

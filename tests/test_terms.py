@@ -227,28 +227,33 @@ def test_batched_two_means_equals_one_bag_at_a_time():
 
 def test_sketched_two_means_near_sklearn_on_digits():
     # Reference: sklearn.cluster.KMeans(n_clusters=2, n_init=10) on embeddings of
-    # scikit-learn's bundled digits (real data) by a random ReLU layer 64 -> 256, as an
-    # untrained head's first layer gives, in bags of 150 images. The partition found on a
-    # 16-d sketch with 4 inits costs at most 3% more inertia than scikit-learn's best of 10
-    # (measured 2.1%; the full-space search with 4 inits gives 0.2%).
+    # scikit-learn's bundled digits (real data) by random ReLU layers 64 -> 256, as an
+    # untrained head's first layer gives, in bags of 150 images. Over six such layers, the
+    # partitions found on a 16-d count sketch with 4 inits cost on average at most 4% more
+    # inertia than scikit-learn's best of 10 (measured 3.5%, from 2.2% to 5.1% per layer;
+    # the same sketch without its signs measured 4.9%, the first 16 units alone 4.6%).
     from sklearn.datasets import load_digits
 
     from wsad.terms.cluster_distance import sketched_two_means
 
-    g = torch.Generator().manual_seed(0)
     pixels = torch.from_numpy(load_digits().data.astype(np.float32)[:1500])
-    x = torch.relu(pixels @ torch.randn(64, 256, generator=g) / 8).numpy()
     mask = torch.ones(10, 150, dtype=torch.bool)
-    assign, _ = sketched_two_means(torch.from_numpy(x), mask, 16, 4, 50, 1e-4)
-    assign = assign.view(10, 150).numpy()
-    ours = refs = 0.0
-    for i in range(10):
-        xi = x[i * 150:(i + 1) * 150].astype(np.float64)
-        for k in (0, 1):
-            part = xi[assign[i] == k]
-            ours += ((part - part.mean(0)) ** 2).sum() if len(part) else 0.0
-        refs += KMeans(2, n_init=10, random_state=0).fit(xi).inertia_
-    assert ours <= refs * 1.03
+    excess = []
+    for seed in range(6):
+        g = torch.Generator().manual_seed(seed)
+        x = torch.relu(pixels @ torch.randn(64, 256, generator=g) / 8).numpy()
+        torch.manual_seed(0)
+        assign, _ = sketched_two_means(torch.from_numpy(x), mask, 16, 4, 50, 1e-4)
+        assign = assign.view(10, 150).numpy()
+        ours = refs = 0.0
+        for i in range(10):
+            xi = x[i * 150:(i + 1) * 150].astype(np.float64)
+            for k in (0, 1):
+                part = xi[assign[i] == k]
+                ours += ((part - part.mean(0)) ** 2).sum() if len(part) else 0.0
+            refs += KMeans(2, n_init=10, random_state=0).fit(xi).inertia_
+        excess.append(ours / refs - 1)
+    assert np.mean(excess) <= 0.04
 
 
 def test_cluster_distance_on_packed_bags_of_varied_length():
