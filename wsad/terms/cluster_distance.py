@@ -82,11 +82,11 @@ def _iterate(x, msk, n, total, c0, c1, n_iter: int, limit):
         new1, new0 = s1 / np.maximum(n1, 1), (total - s1) / np.maximum(n0, 1)
         if not (n1 > 0).all() or not (n0 > 0).all():  # an empty cluster keeps its centre
             new1, new0 = np.where(n1 > 0, new1, c1), np.where(n0 > 0, new0, c0)
-        if limit is not None:
-            d1, d0 = new1 - c1, new0 - c0
-            moved = np.einsum("bh,bh->b", d1, d1) + np.einsum("bh,bh->b", d0, d0)
+        settled = limit is not None and bool(
+            (np.einsum("bh,bh->b", new1 - c1, new1 - c1) + np.einsum("bh,bh->b", new0 - c0, new0 - c0)
+             <= limit).all())
         c0, c1 = new0, new1
-        if limit is not None and (moved <= limit).all():
+        if settled:
             break
     return assign
 
