@@ -2,10 +2,10 @@
 
 Per-segment features of long fixed-camera videos, one label per video, and
 MIL training variants compared over seeds with honest statistics.
+
+The package reads downward: ``store`` (the feature store) <- ``data``
+(standardising, caching, batching, scoring batches) <- ``bags``, ``heads``,
+``pooling``, ``cluster`` <- ``terms`` <- ``train`` <- ``cli``; ``evaluate``
+turns scores into metrics, ``report`` turns runs into tables and plots.
 """
-from pathlib import Path
-
 __version__ = "0.1.0"
-
-#: The repository root (configs in ``conf/``, scenarios in ``synthetic/``).
-PROJECT_ROOT = Path(__file__).resolve().parent.parent

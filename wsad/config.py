@@ -5,14 +5,17 @@ from hydra import compose, initialize_config_dir
 from hydra.core.global_hydra import GlobalHydra
 from omegaconf import DictConfig
 
-from . import PROJECT_ROOT
+from .registry import register_terms, search_dirs
+from .resources import CONF_DIR
 
-CONF_DIR = PROJECT_ROOT / "conf"
+__all__ = ["CONF_DIR", "compose_config"]
 
 
 def compose_config(overrides: list[str] | None = None) -> DictConfig:
     """The config ``wsad-train`` would run with these overrides, e.g.
     ``compose_config(["data.root=store", "recipe=windows", "bags.order=sequential"])``."""
+    overrides = list(overrides or [])
+    register_terms(search_dirs(overrides))
     GlobalHydra.instance().clear()
     with initialize_config_dir(config_dir=str(CONF_DIR), version_base="1.3"):
-        return compose(config_name="config", overrides=list(overrides or []))
+        return compose(config_name="config", overrides=overrides)

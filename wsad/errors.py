@@ -1,11 +1,11 @@
-"""One exception type for problems the user can fix, and the CLI wrapper that
-turns it into one clear line and a non-zero exit."""
+"""One exception type for problems the user can fix, and the one wrapper that
+turns it into one clear line and a non-zero exit for every console script."""
 from __future__ import annotations
 
 import os
 import sys
 import traceback
-from typing import Callable
+from typing import Any, Callable
 
 
 class WsadError(Exception):
@@ -18,23 +18,35 @@ class WsadError(Exception):
     exit_code = 2
 
 
-def run_cli(fn: Callable[[], int | None], prog: str) -> None:
-    """Run a console entry point; map errors to one line and an exit code."""
-    debug = os.environ.get("WSAD_DEBUG", "") not in ("", "0")
+def debugging() -> bool:
+    return os.environ.get("WSAD_DEBUG", "") not in ("", "0")
+
+
+def guarded(fn: Callable[[], Any], prog: str) -> Any:
+    """Call ``fn``; a failure becomes one line on stderr and ``sys.exit``.
+
+    A :class:`WsadError` exits with its own code (2 for input problems; an
+    interrupted run uses 128 + signal and is not called an error), Ctrl-C
+    with 130, anything unexpected with 1. ``WSAD_DEBUG=1`` adds the traceback.
+    """
     try:
-        code = fn()
+        return fn()
     except WsadError as err:
-        if debug:
+        if debugging():
             traceback.print_exc()
-        print(f"{prog}: error: {err}", file=sys.stderr)
+        print(f"{prog}: {'error: ' if err.exit_code == 2 else ''}{err}", file=sys.stderr)
         sys.exit(err.exit_code)
     except KeyboardInterrupt:
         print(f"{prog}: interrupted", file=sys.stderr)
         sys.exit(130)
     except Exception as err:  # an unexpected failure: still one line by default
-        if debug:
+        if debugging():
             traceback.print_exc()
         print(f"{prog}: internal error: {type(err).__name__}: {err} "
               "(set WSAD_DEBUG=1 for the traceback)", file=sys.stderr)
         sys.exit(1)
-    sys.exit(int(code or 0))
+
+
+def run_cli(fn: Callable[[], int | None], prog: str) -> None:
+    """Run a console entry point and exit with its code (see :func:`guarded`)."""
+    sys.exit(int(guarded(fn, prog) or 0))

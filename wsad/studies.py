@@ -18,9 +18,9 @@ def _one_run(overrides: list[str]) -> dict:
     from .config import compose_config
     from .train import train
 
-    cfg = compose_config(overrides)
-    value = train(cfg)
-    return {**train.last_result, "returned": value, "overrides": " ".join(overrides)}
+    res = train(compose_config(overrides))
+    return {**res.metrics, "out_dir": str(res.out_dir), "run_id": res.run_id,
+            "returned": res.objective, "overrides": " ".join(overrides)}
 
 
 def run_many(override_sets: list[list[str]], jobs: int = 2, desc: str = "runs") -> pd.DataFrame:
@@ -106,7 +106,7 @@ def order_effect_plot(effect: pd.DataFrame, path: Path | None = None):
                title=f"window order effect vs {knob}\n(red: paired t p < 0.05)")
     fig.tight_layout()
     if path is not None:
-        from .plots import save_figure
+        from .evaluate.plots import save_figure
 
         save_figure(fig, Path(path), 120, close=False)
     return fig

@@ -10,10 +10,14 @@ from typing import Any, Callable
 
 from omegaconf import DictConfig, OmegaConf
 
-from . import PROJECT_ROOT, __version__
+from . import __version__
+from .resources import source_checkout
 
-# keys left out of run names: they say where, not what
-_NAME_SKIP = ("data.root", "seed", "tracking.", "trainer.progress", "trainer.out_dir", "hydra.")
+#: Params (prefixes) that say where or how a run ran, never what it is: left out of
+#: run names and never taken as what tells variants apart in a report.
+BOOKKEEPING = ("seed", "data.root", "data.fingerprint", "tracking.", "trainer.progress",
+               "trainer.out_dir", "trainer.resume", "trainer.threads", "wsad.version", "hydra",
+               "choice.sweep", "choice.tracking")
 
 
 def retry(fn: Callable[[], Any], attempts: int = 8, delay: float = 0.25) -> Any:
@@ -94,7 +98,7 @@ def run_name(cfg: DictConfig, overrides: list[str] | None) -> str:
     parts = [str(cfg.get("recipe_name", "run"))]
     for o in overrides or []:
         key = o.lstrip("+~").split("=", 1)[0]
-        if key in ("recipe",) or key.startswith(_NAME_SKIP):
+        if key in ("recipe",) or key.startswith(BOOKKEEPING):
             continue
         parts.append(o.lstrip("+~"))
     parts.append(f"seed={cfg.seed}")
@@ -113,8 +117,12 @@ def hydra_choices() -> dict[str, str]:
 
 
 def git_commit() -> str | None:
+    """The commit of the checkout wsad runs from (None for an installed wheel)."""
+    root = source_checkout()
+    if root is None:
+        return None
     try:
-        out = subprocess.run(["git", "rev-parse", "HEAD"], cwd=PROJECT_ROOT, capture_output=True,
+        out = subprocess.run(["git", "rev-parse", "HEAD"], cwd=root, capture_output=True,
                              text=True, timeout=5)
         return out.stdout.strip() or None if out.returncode == 0 else None
     except (OSError, subprocess.SubprocessError):

@@ -12,8 +12,6 @@ class AnomalousNormalPairs(WholeVideo):
     MIL ranking hinge compares; Sultani et al., CVPR 2018). Bags are resampled
     to ``chunks`` (32 by default, from memory of the paper)."""
 
-    name = "pairs"
-
     def __init__(self, per_class: int = 30, chunks: int | None = 32):
         super().__init__(per_class=per_class, chunks=chunks)
 

@@ -2,7 +2,8 @@
 from __future__ import annotations
 
 from ..errors import WsadError
-from .base import BagConstruction, Item, balanced_batches, video_items
+from ..data.batch import Item
+from .base import BagConstruction, balanced_batches, video_items
 
 
 class WholeVideo(BagConstruction):
@@ -13,8 +14,6 @@ class WholeVideo(BagConstruction):
     instances (common practice since the MIL ranking paper, Sultani et al.,
     CVPR 2018; from memory).
     """
-
-    name = "whole"
 
     def __init__(self, per_class: int = 16, chunks: int | None = None):
         if per_class < 1:

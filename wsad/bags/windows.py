@@ -4,7 +4,8 @@ from __future__ import annotations
 import numpy as np
 
 from ..errors import WsadError
-from .base import BagConstruction, Item
+from ..data.batch import Item
+from .base import BagConstruction
 
 ORDERS = ("sequential", "shuffled")
 
@@ -21,8 +22,6 @@ class Windows(BagConstruction):
     published way to break that correlation. Either way every window is
     visited exactly once per epoch.
     """
-
-    name = "windows"
 
     def __init__(self, size: int = 32, stride: int | None = None, order: str = "shuffled",
                  batch_size: int = 32):

@@ -5,6 +5,7 @@ import argparse
 import sys
 
 from ..errors import run_cli
+from ..store.format import SEGMENT_FRAMES
 
 
 def _main(argv: list[str]) -> int:
@@ -18,7 +19,8 @@ def _main(argv: list[str]) -> int:
     ap.add_argument("--events", help="CSV with video,start,end (frame indices, end exclusive)")
     ap.add_argument("--out", required=True, help="new folder for the store")
     ap.add_argument("--copy", action="store_true", help="copy arrays instead of symlinking them")
-    ap.add_argument("--segment-frames", type=int, default=16)
+    ap.add_argument("--segment-frames", type=int, default=SEGMENT_FRAMES,
+                    help=f"frames per segment of your arrays (default {SEGMENT_FRAMES})")
     args = ap.parse_args(argv)
     out = build_store(args.features_dir, args.labels, args.out, events_csv=args.events,
                       copy=args.copy, segment_frames=args.segment_frames)

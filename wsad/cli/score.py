@@ -2,6 +2,7 @@
 from __future__ import annotations
 
 import sys
+import warnings
 from pathlib import Path
 
 from ..errors import WsadError, run_cli
@@ -31,8 +32,10 @@ def _main(argv: list[str]) -> int:
     if out.exists():
         raise WsadError(f"out={out} exists; choose a new file (wsad-score never overwrites)")
 
-    from ..evaluate import compute_metrics, frame_table
-    from ..model_io import load_checkpoint, model_from_checkpoint, score_videos, video_scores
+    from ..checkpoint import load_checkpoint, model_from_checkpoint
+    from ..data.scoring import score_videos
+    from ..evaluate import compute_metrics, frame_table, video_scores
+    from ..files import atomic_path
     from ..store import FeatureStore, check_store
 
     errors = [p for p in check_store(opts["data.root"]) if p.severity == "error"]
@@ -51,13 +54,10 @@ def _main(argv: list[str]) -> int:
         raise WsadError(f"the store has no {split} videos")
     scored = video_scores(store, score_videos(model, store, videos, std, cfg.bags.get("chunks")))
     table = frame_table(scored)
-    out.parent.mkdir(parents=True, exist_ok=True)
-    tmp = out.with_suffix(".parquet.tmp")
-    table.to_parquet(tmp, index=False)
-    tmp.replace(out)
+    with atomic_path(out) as tmp:
+        table.to_parquet(tmp, index=False)
     print(f"wsad-score: {len(videos)} videos, {len(table)} frames -> {out}")
     try:
-        import warnings
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")
             m = compute_metrics(scored)

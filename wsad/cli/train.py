@@ -3,80 +3,70 @@ from __future__ import annotations
 
 import os
 import sys
+from pathlib import Path
 
 import hydra
 from omegaconf import DictConfig
 
-from .. import PROJECT_ROOT
-from ..errors import WsadError
+from .. import registry
+from ..errors import WsadError, guarded
+from ..resources import CONF_DIR
 
-CONF = PROJECT_ROOT / "conf"
-GROUPS = ("data", "bags", "head", "objective", "terms", "optim", "trainer", "tracking", "recipe",
-          "sweep")
+PROG = "wsad-train"
+SHOWN = ("frame_auc", "frame_ap", "anomalous_video_auc", "false_alarm_rate", "video_auc")
 
 
-@hydra.main(config_path=str(CONF), config_name="config", version_base="1.3")
+@hydra.main(config_path=str(CONF_DIR), config_name="config", version_base="1.3")
 def _app(cfg: DictConfig) -> float:
     from hydra.core.hydra_config import HydraConfig
 
     from ..train import train
 
     overrides = list(HydraConfig.get().overrides.task)
-    try:
-        value = train(cfg, overrides)
-    except WsadError as err:
-        if os.environ.get("WSAD_DEBUG", "") not in ("", "0"):
-            raise
-        print(f"wsad-train: {'error: ' if err.exit_code == 2 else ''}{err}", file=sys.stderr)
-        sys.exit(err.exit_code)
-    except Exception as err:  # unexpected: still one line unless WSAD_DEBUG=1
-        if os.environ.get("WSAD_DEBUG", "") not in ("", "0"):
-            raise
-        print(f"wsad-train: internal error: {type(err).__name__}: {err} "
-              "(set WSAD_DEBUG=1 for the traceback)", file=sys.stderr)
-        sys.exit(1)
-    r = train.last_result
-    shown = ", ".join(f"{k} {r[k]:.4f}" for k in ("frame_auc", "frame_ap", "anomalous_video_auc",
-                                                  "false_alarm_rate", "video_auc") if k in r)
-    print(f"wsad-train: {shown}\n  artifacts in {r['out_dir']}"
-          + (f"\n  MLflow run {r['run_id']}" if r.get("run_id") else ""))
-    return value
+    res = guarded(lambda: train(cfg, overrides), PROG)
+    shown = ", ".join(f"{k} {res.metrics[k]:.4f}" for k in SHOWN if k in res.metrics)
+    print(f"{PROG}: {shown}\n  artifacts in {res.out_dir}"
+          + (f"\n  MLflow run {res.run_id}" if res.run_id else ""))
+    return res.objective
 
 
-def check_arguments(argv: list[str]) -> None:
+def check_arguments(argv: list[str], dirs: list[Path]) -> None:
     """The mistakes Hydra would answer with a screenful, answered in one line:
-    an unknown option of a config group, and a missing data.root."""
+    an unknown option of a config group, an unknown term, a missing data.root."""
     args = [a for a in argv if not a.startswith("-")]
     keys = {a.split("=", 1)[0].lstrip("+~") for a in args if "=" in a}
     if "data.root" not in keys and "trainer.resume" not in keys and not any(
-            a in ("--help", "-h", "--cfg", "--info") or a.startswith("--cfg") for a in argv):
+            a in ("--help", "-h", "--info") or a.startswith("--cfg") for a in argv):
         raise WsadError("data.root=DIR is required (a feature store; make one with wsad-synth or "
                         "wsad-index)")
-    import yaml
-
-    terms = list(yaml.safe_load((CONF / "objective" / "default.yaml").read_text()))
+    terms = registry.options("terms", dirs)
     for a in args:
         if "=" not in a:
             continue
         key, value = a.split("=", 1)
         if key.startswith("objective.") and key.split(".", 1)[1] not in terms:
-            raise WsadError(f"{key} is not a term; known terms: {', '.join(terms)} "
-                            "(a term of your own: +objective.NAME=W with +terms.NAME._target_=...)")
+            raise WsadError(f"{key} is not a term; known terms: {', '.join(terms)} (a term of your "
+                            "own: terms/NAME.yaml in a folder on hydra.searchpath; see DEVELOPERS.md)")
         key = key.lstrip("+~")
-        if key not in GROUPS or "(" in value:
+        if key == "terms":
+            raise WsadError("terms is not a group to choose from: every terms/NAME.yaml is a term; "
+                            "switch one on with objective.NAME=WEIGHT")
+        if key not in registry.GROUPS or "(" in value:
             continue
+        known = registry.options(key, dirs)
         for option in value.strip("[]").split(","):
             option = option.strip()
-            if option and not (CONF / key / f"{option}.yaml").is_file():
-                known = sorted(p.stem for p in (CONF / key).glob("*.yaml"))
+            if option and option not in known:
                 raise WsadError(f"{key}={option} is not known; choose one of: {', '.join(known)}")
 
 
 def main() -> None:
     os.environ.setdefault("WSAD_LAUNCH_DIR", os.getcwd())
-    try:
-        check_arguments(sys.argv[1:])
-    except WsadError as err:
-        print(f"wsad-train: error: {err}", file=sys.stderr)
-        sys.exit(2)
+
+    def prepare() -> None:
+        dirs = registry.search_dirs(sys.argv[1:])
+        registry.register_terms(dirs)
+        check_arguments(sys.argv[1:], dirs)
+
+    guarded(prepare, PROG)
     _app()

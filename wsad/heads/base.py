@@ -1,47 +1,60 @@
-"""What every head returns, the scorer stack they share, and the two batch layouts.
+"""What every head returns, and the parts heads share (dropout, the scorer stack).
 
-Batches reach a head as ``x`` plus ``mask`` [B, T] (True = real segment). ``x``
-is either packed, [N, D] with N = mask.sum() (the real segments of bag 0, then
-bag 1, ...: what the training loader and the scorer send, so no work is spent
-on padding), or padded, [B, T, D]. :func:`real_rows` and :func:`padded` give a
-head the layout it needs from either.
+A head is an ``nn.Module`` with ``forward(x, mask) -> HeadOutput``; ``x`` comes
+packed or padded (see :mod:`wsad.data.layout`), ``mask`` is [B, T].
 """
 from __future__ import annotations
+
+from typing import Sequence
 
 import numpy as np
 import torch
 from torch import nn
 
+from ..data.layout import unpack
+from ..errors import WsadError
+
 
 class HeadOutput:
-    """``logits`` [B, T]; ``embeddings`` [B, T, H] (the first hidden layer), given
-    as a tensor or as packed rows [N, H] that are scattered to [B, T, H] only
-    when a term asks for them; optional ``attention`` [B, T] (sums to 1 over
-    real segments) and ``bag_logits`` [B] when the head scores the bag itself."""
+    """A head's output for a batch of B bags of up to T segments.
 
-    def __init__(self, logits: torch.Tensor, embeddings: torch.Tensor,
-                 attention: torch.Tensor | None = None, bag_logits: torch.Tensor | None = None,
-                 mask: torch.Tensor | None = None):
-        self.logits, self.attention, self.bag_logits = logits, attention, bag_logits
-        packed = mask is not None and embeddings.dim() == 2
-        self._mask = mask
-        self._packed = embeddings if packed else None          # [N, H] or None
-        self._padded = None if packed else embeddings          # [B, T, H], built on first use
+    Args:
+        logits: [B, T] segment logits (any value on padding).
+        embeddings: the segment embeddings (the first hidden layer), either
+            packed rows [N, H] of the real segments or padded [B, T, H].
+        mask: [B, T], True = real segment.
+        attention: optional [B, T] weights summing to 1 over real segments.
+        bag_logits: optional [B], when the head scores the bag itself.
+
+    Both embedding layouts are available (``embeddings`` padded,
+    ``packed_embeddings`` packed); the one the head did not give is built on
+    first use only, so a step whose terms need neither pays for neither.
+    """
+
+    def __init__(self, logits: torch.Tensor, embeddings: torch.Tensor, mask: torch.Tensor,
+                 attention: torch.Tensor | None = None, bag_logits: torch.Tensor | None = None):
+        self.logits, self.mask, self.attention, self.bag_logits = logits, mask, attention, bag_logits
+        packed = embeddings.dim() == 2
+        self._packed = embeddings if packed else None
+        self._padded = None if packed else embeddings
 
     @property
     def scores(self) -> torch.Tensor:
+        """[B, T] segment scores sigmoid(logits)."""
         return torch.sigmoid(self.logits)
 
     @property
     def embeddings(self) -> torch.Tensor:
-        if self._padded is None:  # packed rows: scatter once
-            self._padded = unpack(self._packed, self._mask)
+        """[B, T, H] segment embeddings, zeros on padding."""
+        if self._padded is None:
+            self._padded = unpack(self._packed, self.mask)
         return self._padded
 
     @property
-    def packed_embeddings(self) -> torch.Tensor | None:
-        """[N, H] embeddings of the real segments only (bag 0 first), or None
-        when the head gave them padded (:class:`TermInputs` then gathers them)."""
+    def packed_embeddings(self) -> torch.Tensor:
+        """[N, H] embeddings of the real segments only, bag 0 first."""
+        if self._packed is None:
+            self._packed = self._padded[self.mask]
         return self._packed
 
 
@@ -58,8 +71,6 @@ class Dropout(nn.Module):
 
     def __init__(self, p: float = 0.5):
         super().__init__()
-        from ..errors import WsadError
-
         if not 0.0 <= float(p) < 1.0:
             raise WsadError(f"dropout={p}; use a probability in [0, 1)")
         self.p = float(p)
@@ -78,7 +89,7 @@ class Dropout(nn.Module):
         return f"p={self.p}"
 
 
-def mlp_layers(sizes: list[int], dropout: float) -> nn.Sequential:
+def mlp_layers(sizes: Sequence[int], dropout: float) -> nn.Sequential:
     """Linear-ReLU-Dropout blocks between consecutive sizes, then Linear(., 1)."""
     layers: list[nn.Module] = []
     for a, b in zip(sizes[:-1], sizes[1:]):
@@ -87,27 +98,9 @@ def mlp_layers(sizes: list[int], dropout: float) -> nn.Sequential:
     return nn.Sequential(*layers)
 
 
-def check_sizes(hidden) -> list[int]:
-    from ..errors import WsadError
-
+def check_sizes(hidden: Sequence[int]) -> list[int]:
+    """``head.hidden`` as a list of positive ints, or a one-line error."""
     hidden = [int(h) for h in hidden]
     if not hidden or min(hidden) < 1:
         raise WsadError(f"head.hidden={hidden}; give at least one positive layer size")
     return hidden
-
-
-def real_rows(x: torch.Tensor, mask: torch.Tensor) -> torch.Tensor:
-    """[N, D] features of the real segments, from a packed or a padded batch."""
-    return x if x.dim() == 2 else x[mask]
-
-
-def padded(x: torch.Tensor, mask: torch.Tensor) -> torch.Tensor:
-    """[B, T, D] features with zeros on padding, from a packed or a padded batch."""
-    return unpack(x, mask) if x.dim() == 2 else x * mask.unsqueeze(-1)
-
-
-def unpack(flat: torch.Tensor, mask: torch.Tensor) -> torch.Tensor:
-    """Scatter values of the real segments [N, ...] back to [B, T, ...] (zeros on padding)."""
-    out = flat.new_zeros(mask.shape + flat.shape[1:])
-    out[mask] = flat
-    return out

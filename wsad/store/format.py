@@ -16,16 +16,23 @@ SPLITS = ("train", "test")
 DTYPES = (np.dtype("float16"), np.dtype("float32"))
 CROP_MODES = ("mean", "each")
 
+#: Frames per segment when ``store.json`` does not say (the common 16-frame snippet).
+SEGMENT_FRAMES = 16
 
-def expected_segments(frames: int, segment_frames: int = 16) -> int:
+
+def expected_segments(frames: int, segment_frames: int = SEGMENT_FRAMES) -> int:
     """Segments of a video of ``frames`` frames: segment t covers frames
-    [16t, 16t+16); the last one also covers the tail (so floor, at least 1)."""
+    [F t, F t + F) with F = ``segment_frames``; the last one also covers the
+    tail (so floor, at least 1)."""
     return max(1, int(frames) // int(segment_frames))
 
 
-def segment_of_frame(frames: int, n_segments: int, segment_frames: int = 16) -> np.ndarray:
-    """Index of the segment covering each frame (tail frames go to the last)."""
-    return np.minimum(np.arange(int(frames)) // segment_frames, n_segments - 1)
+def segments_to_frames(segment_scores: np.ndarray, frames: int,
+                       segment_frames: int = SEGMENT_FRAMES) -> np.ndarray:
+    """Repeat each segment's value over its frames; the tail takes the last segment."""
+    s = np.asarray(segment_scores)
+    idx = np.minimum(np.arange(int(frames)) // segment_frames, len(s) - 1)
+    return s[idx]
 
 
 class FeatureStore:
@@ -55,7 +62,7 @@ class FeatureStore:
             raise WsadError(f"{self.root}/store.json is unreadable ({err}); "
                             "run wsad-check for details") from None
         self.dim = int(self.meta["dim"])
-        self.segment_frames = int(self.meta.get("segment_frames", 16))
+        self.segment_frames = int(self.meta.get("segment_frames", SEGMENT_FRAMES))
         self.manifest = pd.read_csv(self.root / "manifest.csv", dtype={"video": str, "group": str,
                                                                        "file": str, "split": str})
         ev_path = self.root / "events.csv"

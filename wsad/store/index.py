@@ -17,7 +17,7 @@ import pandas as pd
 
 from ..errors import WsadError
 from .atomic import new_store_dir, refuse_existing, write_store_json
-from .format import MANIFEST_COLUMNS
+from .format import MANIFEST_COLUMNS, SEGMENT_FRAMES
 
 LABEL_COLUMNS = ["video", "label", "split"]
 
@@ -34,7 +34,7 @@ def _safe_name(video: str, taken: set[str]) -> str:
 
 def build_store(features_dir: str | Path, labels_csv: str | Path, out: str | Path,
                 events_csv: str | Path | None = None, copy: bool = False,
-                segment_frames: int = 16, description: str = "") -> Path:
+                segment_frames: int = SEGMENT_FRAMES, description: str = "") -> Path:
     """Create a store at ``out`` (which must not exist, or be an empty folder).
 
     ``labels_csv`` has columns ``video,label,split`` and optionally ``group``

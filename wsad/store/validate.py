@@ -12,8 +12,8 @@ from pathlib import Path, PurePosixPath
 import numpy as np
 import pandas as pd
 
-from .format import (DTYPES, EVENT_COLUMNS, FORMAT_VERSION, MANIFEST_COLUMNS, SPLITS,
-                     expected_segments)
+from .format import (DTYPES, EVENT_COLUMNS, FORMAT_VERSION, MANIFEST_COLUMNS, SEGMENT_FRAMES,
+                     SPLITS, expected_segments)
 
 # Arrays are scanned for NaN/Inf in blocks so that a large store never sits in RAM.
 _SCAN_BLOCK = 1 << 22
@@ -53,7 +53,7 @@ def _read_store_json(root: Path, out: list[Problem]) -> dict | None:
                            f"format {FORMAT_VERSION}"))
         ok = False
     for key in ("dim", "segment_frames"):
-        val = meta.get(key, 16 if key == "segment_frames" else None)
+        val = meta.get(key, SEGMENT_FRAMES if key == "segment_frames" else None)
         if not isinstance(val, int) or isinstance(val, bool) or val <= 0:
             out.append(Problem("-", f"store.json {key} is {val!r}; it must be a positive integer"))
             ok = False
@@ -245,7 +245,7 @@ def check_store(root: str | Path, strict: bool = False, scan_values: bool = True
         return out
     rows = _check_rows(man, out)
     dim = meta["dim"] if meta else None
-    seg_frames = meta.get("segment_frames", 16) if meta else 16
+    seg_frames = meta.get("segment_frames", SEGMENT_FRAMES) if meta else SEGMENT_FRAMES
     for v, row in rows.items():
         _check_array(root, v, row, dim, seg_frames, out, scan_values)
     known = set(man["video"].str.strip())

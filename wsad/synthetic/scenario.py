@@ -7,10 +7,8 @@ import yaml
 from omegaconf import DictConfig, OmegaConf
 from omegaconf.errors import OmegaConfBaseException
 
-from .. import PROJECT_ROOT
 from ..errors import WsadError
-
-SCENARIO_DIR = PROJECT_ROOT / "synthetic"
+from ..resources import SCENARIO_DIR
 
 
 def scenario_names() -> list[str]:

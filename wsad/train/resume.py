@@ -11,7 +11,7 @@ from pathlib import Path
 import numpy as np
 import torch
 
-from .errors import WsadError
+from ..errors import WsadError
 
 
 class TrainingInterrupted(WsadError):
@@ -74,16 +74,6 @@ def _to_lists(x):
 
 def _to_tuples(x):
     return tuple(_to_tuples(v) for v in x) if isinstance(x, list) else x
-
-
-def save_state(path: Path, state: dict) -> Path:
-    """Write atomically: a temporary file, then a rename (a kill never leaves half a file)."""
-    path = Path(path)
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(path.name + ".tmp")
-    torch.save(state, tmp)
-    tmp.replace(path)
-    return path
 
 
 def find_checkpoint(run_id: str, tracking_uri: str) -> Path:

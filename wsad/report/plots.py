@@ -6,12 +6,12 @@ import os
 import tempfile
 from pathlib import Path
 
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-import pandas as pd  # noqa: E402
-import seaborn as sns  # noqa: E402
+import matplotlib.pyplot as plt
+import numpy as np
+import pandas as pd
+import seaborn as sns
 
-from .plots import roc_plot, save_figure  # noqa: E402
+from ..evaluate.plots import roc_plot, save_figure
 
 
 def metric_plot(rep, metric: str, path: Path) -> Path:

@@ -1,25 +1,24 @@
-"""Plots written as artifacts: ROC curve and score timelines."""
+"""Plots of one run's scores (ROC curve, score timelines) and of a store's streams."""
 from __future__ import annotations
 
 from pathlib import Path
 
-import matplotlib.pyplot as plt  # noqa: E402
-import numpy as np  # noqa: E402
-import seaborn as sns  # noqa: E402
-from sklearn.metrics import roc_curve  # noqa: E402
+import matplotlib.pyplot as plt
+import numpy as np
+import seaborn as sns
+from sklearn.metrics import roc_curve
 
-from .evaluate import VideoScores  # noqa: E402
+from ..files import atomic_path
+from .metrics import ALARM_THRESHOLD, VideoScores
 
 
 def save_figure(fig, path: Path, dpi: int = 120, close: bool = True) -> Path:
     """Save through a temporary file and a rename: a killed run never leaves half a PNG."""
-    path = Path(path)
-    tmp = path.with_name(f".{path.stem}.tmp{path.suffix}")
-    fig.savefig(tmp, dpi=dpi)
+    with atomic_path(path) as tmp:
+        fig.savefig(tmp, dpi=dpi)
     if close:
         plt.close(fig)
-    tmp.replace(path)
-    return path
+    return Path(path)
 
 
 def roc_plot(curves: dict[str, tuple[np.ndarray, np.ndarray]], path: Path, title: str = "") -> Path:
@@ -56,7 +55,7 @@ def timeline_plot(videos: list[VideoScores], path: Path, title: str = "") -> Pat
             ax.fill_between(np.arange(v.frames), 0, 1, where=v.frame_labels > 0, color="tab:red",
                             alpha=0.18, step="post", label="ground truth")
         ax.plot(np.arange(v.frames), fs, lw=1.1, color="tab:blue", label="score")
-        ax.axhline(0.5, ls=":", c="grey", lw=0.8)
+        ax.axhline(ALARM_THRESHOLD, ls=":", c="grey", lw=0.8)
         ax.set_ylim(-0.02, 1.02)
         ax.set_ylabel("score", fontsize=8)
         ax.set_title(f"{v.video} ({'anomalous' if v.label else 'normal'})", fontsize=8, loc="left")
@@ -91,7 +90,7 @@ def stream_plot(store, videos: list[str], dims: int = 3):
         ax.set_title(f"{v} ({'anomalous' if store.label(v) else 'normal'}, camera {store.group(v)})",
                      fontsize=8, loc="left")
         ax.tick_params(labelsize=7)
-    axes[-1, 0].set_xlabel("segment (16 frames each)")
+    axes[-1, 0].set_xlabel(f"segment ({store.segment_frames} frames each)")
     axes[0, 0].legend(fontsize=7, loc="upper right")
     fig.tight_layout()
     return fig

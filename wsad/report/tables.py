@@ -21,14 +21,9 @@ import numpy as np
 import pandas as pd
 from scipy import stats
 
-from .errors import WsadError
-from .evaluate import METRICS
-
-# params that identify a run or a place, never a variant
-NOT_VARIANT = ("seed", "data.fingerprint", "trainer.out_dir", "trainer.progress", "tracking.",
-               "wsad.version", "trainer.resume", "trainer.threads", "hydra", "data.root",
-               "choice.sweep", "choice.tracking")
-
+from ..errors import WsadError
+from ..evaluate.metrics import METRICS
+from .runs import label_keys, label_of, varying_params
 
 def t_interval(x, level: float = 0.95) -> tuple[float, float, float, float, int]:
     """(mean, sd, lo, hi, n) with the Student t interval; lo/hi NaN when n < 2."""
@@ -59,85 +54,6 @@ def paired_tests(a, b) -> dict[str, float]:
     return {"diff": mean, "diff_lo": lo, "diff_hi": hi, "n_pairs": n, "p_t": p_t, "p_wilcoxon": p_w}
 
 
-def load_runs(tracking_uri: str, experiment: str, filter_string: str = "") -> pd.DataFrame:
-    """One row per FINISHED run: run_id, run_name, params.* and metrics.* columns."""
-    import mlflow
-
-    client = mlflow.MlflowClient(tracking_uri)
-    exp = client.get_experiment_by_name(experiment)
-    if exp is None:
-        names = [e.name for e in client.search_experiments()]
-        raise WsadError(f"no experiment {experiment!r} at {tracking_uri}; known: {', '.join(names) or 'none'}")
-    runs, token = [], None
-    while True:
-        page = client.search_runs([exp.experiment_id], filter_string=filter_string,
-                                  max_results=1000, page_token=token)
-        runs += list(page)
-        token = page.token
-        if not token:
-            break
-    rows = []
-    for r in runs:
-        if r.info.status != "FINISHED":
-            continue
-        row = {"run_id": r.info.run_id, "run_name": r.info.run_name}
-        row.update({f"params.{k}": v for k, v in r.data.params.items()})
-        row.update({f"metrics.{k}": v for k, v in r.data.metrics.items()})
-        rows.append(row)
-    if not rows:
-        raise WsadError(f"experiment {experiment!r} has no FINISHED runs"
-                        + (f" matching {filter_string!r}" if filter_string else ""))
-    return pd.DataFrame(rows)
-
-
-def varying_params(runs: pd.DataFrame) -> list[str]:
-    """Params (without the 'params.' prefix) that take more than one value,
-    leaving out the seed and per-run bookkeeping."""
-    out = []
-    for col in runs.columns:
-        if not col.startswith("params."):
-            continue
-        key = col[len("params."):]
-        if key.startswith(NOT_VARIANT):
-            continue
-        if runs[col].fillna("<unset>").nunique() > 1:
-            out.append(key)
-    return sorted(out)
-
-
-PRIORITY = ("choice.recipe", "recipe_name", "choice.bags", "choice.head", "ablation.toggle",
-            "choice.optim", "bags._target_", "bags.order", "head._target_")
-
-
-def _short(v) -> str:
-    v = "unset" if v is None or v != v or v == "nan" else str(v)
-    return v.rsplit(".", 1)[-1] if v.startswith("wsad.") or v.startswith("torch.") else v
-
-
-def label_keys(runs: pd.DataFrame, by: list[str]) -> list[str]:
-    """The fewest of ``by`` that still tell every variant apart (for readable
-    labels): well-known keys first, then the ones with most distinct values."""
-    if not by:
-        return []
-    full = runs[[f"params.{k}" for k in by]].fillna("unset").astype(str).agg("|".join, axis=1)
-    n_full = full.nunique()
-    order = sorted(by, key=lambda k: (PRIORITY.index(k) if k in PRIORITY else len(PRIORITY),
-                                      -runs[f"params.{k}"].nunique(), k))
-    chosen: list[str] = []
-    for k in order:
-        chosen.append(k)
-        part = runs[[f"params.{c}" for c in chosen]].fillna("unset").astype(str).agg("|".join, axis=1)
-        if part.nunique() == n_full:
-            break
-    return chosen
-
-
-def _label(values: dict[str, str]) -> str:
-    if not values:
-        return "all runs"
-    return ", ".join(f"{k.removeprefix('choice.')}={_short(v)}" for k, v in values.items())
-
-
 @dataclass
 class Report:
     table: pd.DataFrame        # one row per (variant, metric)
@@ -162,7 +78,7 @@ def build_report(runs: pd.DataFrame, by: list[str] | None = None, baseline: str 
         if f"params.{key}" not in runs.columns:
             runs[f"params.{key}"] = None
     shown = label_keys(runs, by)
-    runs["variant"] = [_label({k: r.get(f"params.{k}") for k in shown}) for _, r in runs.iterrows()]
+    runs["variant"] = [label_of({k: r.get(f"params.{k}") for k in shown}) for _, r in runs.iterrows()]
     runs["seed"] = runs.get("params.seed", pd.Series(["0"] * len(runs)))
     variants = list(dict.fromkeys(sorted(runs["variant"], key=_baseline_rank)))
     base = _pick_baseline(variants, baseline)
@@ -275,7 +191,7 @@ def write_report(rep: Report, out: Path, tracking_uri: str | None = None,
     paths["tex"] = out / "report.tex"
     paths["tex"].write_text("\n\n".join(f"% {m}\n" + latex_table(rep, m) for m in metrics) + "\n")
     if plots:
-        from . import report_plots
+        from .plots import all_plots
 
-        paths.update(report_plots.all_plots(rep, out, tracking_uri, headline))
+        paths.update(all_plots(rep, out, tracking_uri, headline))
     return paths

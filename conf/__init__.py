@@ -1,0 +1,1 @@
+"""wsad's Hydra configuration, shipped inside the package as ``wsad.conf``."""

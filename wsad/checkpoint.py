@@ -1,0 +1,58 @@
+"""Reading and writing model checkpoints (a state dict plus the config)."""
+from __future__ import annotations
+
+import io
+import pickle
+from pathlib import Path
+
+import torch
+from omegaconf import DictConfig, OmegaConf
+
+from .data.standardize import Standardizer
+from .errors import WsadError
+from .files import atomic_path
+from .registry import build_component
+
+
+def build_head(cfg: DictConfig, in_dim: int) -> torch.nn.Module:
+    """The head ``cfg.head`` names, for features of width ``in_dim``."""
+    return build_component(cfg.head, "head", in_dim=in_dim)
+
+
+def save_torch(path: str | Path, payload: dict) -> Path:
+    """``torch.save`` written atomically (temporary file + rename)."""
+    with atomic_path(path) as tmp:
+        torch.save(payload, tmp)
+    return Path(path)
+
+
+def save_checkpoint(path: str | Path, model: torch.nn.Module, cfg: DictConfig, std: Standardizer,
+                    dim: int) -> Path:
+    """A state dict plus config and standardiser, loadable with ``weights_only``."""
+    return save_torch(path, {"state_dict": model.state_dict(),
+                             "config": OmegaConf.to_yaml(cfg, resolve=True),
+                             "standardizer": std.state(), "dim": int(dim)})
+
+
+def load_checkpoint(path: str | Path) -> dict:
+    """Load with ``weights_only=True``: tensors and plain containers only, so a
+    crafted file cannot run code while it is read."""
+    path = Path(path)
+    if not path.is_file():
+        raise WsadError(f"checkpoint {path} does not exist")
+    try:
+        return torch.load(path, map_location="cpu", weights_only=True)
+    except pickle.UnpicklingError as err:
+        raise WsadError(f"checkpoint {path} holds objects other than tensors and plain data; "
+                        f"refused to load it ({str(err).splitlines()[0][:120]})") from None
+    except (RuntimeError, EOFError, io.UnsupportedOperation, ValueError) as err:
+        raise WsadError(f"checkpoint {path} is not a readable wsad checkpoint ({err})") from None
+
+
+def model_from_checkpoint(ckpt: dict) -> tuple[torch.nn.Module, DictConfig, Standardizer]:
+    """The trained head (in eval mode), its config and its standardiser."""
+    cfg = OmegaConf.create(ckpt["config"])
+    model = build_head(cfg, ckpt["dim"])
+    model.load_state_dict(ckpt["state_dict"])
+    model.eval()
+    return model, cfg, Standardizer.from_state(ckpt["standardizer"])

@@ -1,0 +1,153 @@
+"""Frame-level evaluation.
+
+Segment scores become frame scores (segment t covers frames [F t, F t + F),
+F = the store's ``segment_frames``, the last one also the tail). Metrics
+(DESIGN names):
+
+- ``frame_auc``: ROC AUC over the concatenated frames of all test videos (micro),
+  AUC = (R_+ - n_+ (n_+ + 1) / 2) / (n_+ n_-), R_+ the sum of the positive frames'
+  mid-ranks (Mann & Whitney 1947; ties count 1/2);
+- ``frame_ap``: average precision, AP = sum_n (R_n - R_{n-1}) P_n over distinct
+  score thresholds from high to low (the step-wise area under precision-recall);
+- ``anomalous_video_auc``: frame AUC over the frames of anomalous test videos only;
+- ``false_alarm_rate``: share of normal test videos' frames scored >= 0.5;
+- ``video_auc``: ROC AUC of the per-video max segment score against video labels.
+"""
+from __future__ import annotations
+
+import warnings
+from dataclasses import dataclass
+
+import numpy as np
+import pandas as pd
+from scipy.stats import rankdata
+
+from ..errors import WsadError
+from ..store.format import SEGMENT_FRAMES, FeatureStore, segments_to_frames
+
+METRICS = ("frame_auc", "frame_ap", "anomalous_video_auc", "false_alarm_rate", "video_auc")
+ALARM_THRESHOLD = 0.5
+
+
+# --- reference-free metric kernels --------------------------------------------------------
+def _two_classes(y: np.ndarray, what: str) -> None:
+    n_pos = int(y.sum())
+    if n_pos == 0 or n_pos == len(y):
+        raise WsadError(f"{what} needs both classes; got only "
+                        f"{'anomalous' if n_pos else 'normal'} ({len(y)} items)")
+
+
+def roc_auc(y: np.ndarray, s: np.ndarray, what: str = "ROC AUC") -> float:
+    """ROC AUC by mid-ranks (Mann-Whitney U / (n_+ n_-)); ties count 1/2."""
+    y = np.asarray(y).astype(bool).ravel()
+    s = np.asarray(s, dtype=np.float64).ravel()
+    if len(y) != len(s):
+        raise WsadError(f"{what}: {len(y)} labels but {len(s)} scores")
+    _two_classes(y, what)
+    n_pos = int(y.sum())
+    n_neg = len(y) - n_pos
+    r = rankdata(s)
+    return float((r[y].sum() - n_pos * (n_pos + 1) / 2) / (n_pos * n_neg))
+
+
+def average_precision(y: np.ndarray, s: np.ndarray, what: str = "AP") -> float:
+    """AP = sum_n (R_n - R_{n-1}) P_n over distinct thresholds, high to low."""
+    y = np.asarray(y).astype(bool).ravel()
+    s = np.asarray(s, dtype=np.float64).ravel()
+    _two_classes(y, what)
+    order = np.argsort(-s, kind="mergesort")
+    s_sorted, y_sorted = s[order], y[order]
+    last = np.r_[np.flatnonzero(np.diff(s_sorted)), len(s_sorted) - 1]  # end of each tie block
+    tp = np.cumsum(y_sorted)[last]
+    fp = (last + 1) - tp
+    precision = tp / (tp + fp)
+    recall_step = np.diff(np.r_[0, tp]) / tp[-1]
+    return float((recall_step * precision).sum())
+
+
+# --- the evaluation ------------------------------------------------------------------------
+@dataclass
+class VideoScores:
+    """Scores and ground truth of one test video."""
+
+    video: str
+    group: str
+    label: int
+    segment_scores: np.ndarray
+    frame_labels: np.ndarray | None  # None: anomalous video without events
+    frames: int
+    segment_frames: int = SEGMENT_FRAMES
+
+    def frame_scores(self) -> np.ndarray:
+        return segments_to_frames(self.segment_scores, self.frames, self.segment_frames)
+
+
+def video_scores(store: FeatureStore, scores: dict[str, np.ndarray]) -> list[VideoScores]:
+    """Segment scores per video joined with the store's labels and ground truth."""
+    return [VideoScores(v, store.group(v), store.label(v), s, store.frame_labels(v),
+                        store.frames(v), store.segment_frames) for v, s in scores.items()]
+
+
+def frame_table(videos: list[VideoScores]) -> pd.DataFrame:
+    """Frames of all videos: columns video, frame, score, label, group. An
+    anomalous video without events has label -1 (unknown) on every frame."""
+    cols = ["video", "frame", "score", "label", "group"]
+    parts = []
+    for v in videos:
+        lab = v.frame_labels.astype(np.int8) if v.frame_labels is not None else np.full(v.frames, -1, np.int8)
+        parts.append(pd.DataFrame({"video": v.video, "frame": np.arange(v.frames, dtype=np.int64),
+                                   "score": v.frame_scores().astype(np.float64),
+                                   "label": lab, "group": v.group}))
+    return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=cols)
+
+
+def compute_metrics(videos: list[VideoScores]) -> dict[str, float]:
+    """The DESIGN metrics. Frame-level ones need events for anomalous test
+    videos; videos without them are skipped with a warning."""
+    if not videos:
+        raise WsadError("no test videos to evaluate")
+    out: dict[str, float] = {}
+    missing = [v.video for v in videos if v.frame_labels is None]
+    if missing:
+        warnings.warn(f"{len(missing)} anomalous test video(s) have no events "
+                      f"(e.g. {missing[0]}); frame-level metrics skip them", stacklevel=2)
+    have = [v for v in videos if v.frame_labels is not None]
+    if have:
+        s = np.concatenate([v.frame_scores() for v in have])
+        y = np.concatenate([v.frame_labels for v in have])
+        if 0 < y.sum() < len(y):
+            out["frame_auc"] = roc_auc(y, s, "frame_auc")
+            out["frame_ap"] = average_precision(y, s, "frame_ap")
+        anom = [v for v in have if v.label == 1]
+        if anom:
+            ya = np.concatenate([v.frame_labels for v in anom])
+            if 0 < ya.sum() < len(ya):
+                sa = np.concatenate([v.frame_scores() for v in anom])
+                out["anomalous_video_auc"] = roc_auc(ya, sa, "anomalous_video_auc")
+    normal = [v for v in videos if v.label == 0]
+    if normal:
+        sn = np.concatenate([v.frame_scores() for v in normal])
+        out["false_alarm_rate"] = float((sn >= ALARM_THRESHOLD).mean())
+    labels = np.array([v.label for v in videos])
+    if 0 < labels.sum() < len(labels):
+        out["video_auc"] = roc_auc(labels, [float(np.max(v.segment_scores)) for v in videos],
+                                   "video_auc")
+    return out
+
+
+def per_video_table(videos: list[VideoScores]) -> pd.DataFrame:
+    """One row per test video: label, group, frames, max/mean score, the share
+    of anomalous frames, the share of frames alarmed, and the within-video AUC."""
+    rows = []
+    for v in videos:
+        fs = v.frame_scores()
+        row = {"video": v.video, "group": v.group, "label": v.label, "frames": v.frames,
+               "max_score": float(fs.max()), "mean_score": float(fs.mean()),
+               "alarm_share": float((fs >= ALARM_THRESHOLD).mean()),
+               "anomalous_share": np.nan, "within_auc": np.nan}
+        if v.frame_labels is not None:
+            row["anomalous_share"] = float(v.frame_labels.mean())
+            if 0 < v.frame_labels.sum() < len(v.frame_labels):
+                row["within_auc"] = roc_auc(v.frame_labels, fs)
+        rows.append(row)
+    return pd.DataFrame(rows)

@@ -1,0 +1,9 @@
+"""Training: the setup built from the config (:mod:`.setup`), one step
+(:mod:`.step`), the loop around it (:mod:`.loop`), and what lets a stopped run
+resume (:mod:`.progress`, :mod:`.resume`)."""
+from .loop import RunResult, train
+from .setup import Setup, apply_ablation, build, build_terms, seed_everything
+from .step import StepResult, objective, step
+
+__all__ = ["RunResult", "train", "Setup", "apply_ablation", "build", "build_terms",
+           "seed_everything", "StepResult", "objective", "step"]

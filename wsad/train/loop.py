@@ -1,0 +1,156 @@
+"""The training loop, top to bottom. Everything is built from the config; a
+new bag construction, head, pooling or term plugs in through its YAML, not here."""
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass
+from pathlib import Path
+
+from omegaconf import DictConfig, OmegaConf
+from tqdm.auto import tqdm
+
+from .. import tracking
+from ..checkpoint import load_checkpoint, save_torch
+from ..data.scoring import score_videos
+from ..errors import WsadError
+from ..evaluate import grouped_bootstrap, roc_auc, video_scores
+from ..store import store_fingerprint
+from .export import export, quiet_metrics
+from .progress import Progress
+from .resume import GracefulStop, TrainingInterrupted, find_checkpoint
+from .setup import Setup, apply_ablation, build, seed_everything
+from .step import step
+
+
+@dataclass
+class RunResult:
+    """What a finished run gives back."""
+
+    metrics: dict[str, float]   # test metrics of the selected model, its epoch and intervals
+    history: list[dict]         # one row per epoch (also in scores/history.csv)
+    out_dir: Path               # the artifacts
+    run_id: str | None          # the MLflow run, None without tracking
+    objective: float            # what a sweeper maximises: the selected epoch's weak-validation
+                                # video AUC (held-out train cameras), never a test metric
+
+
+def train(cfg: DictConfig, overrides: list[str] | None = None) -> RunResult:
+    """Train, evaluate and log one run.
+
+    ``trainer.resume=RUN_ID`` continues an interrupted run from its last saved
+    state, with the configuration it was started with."""
+    state = None
+    if cfg.trainer.get("resume"):
+        cfg, state = _resume_point(cfg)
+    else:
+        apply_ablation(cfg)
+    seed_everything(int(cfg.seed), cfg.trainer.threads)
+    s = build(cfg)
+    prog = Progress.start(s) if state is None else Progress.restore(state, s)
+    run = _start_run(cfg, overrides, s, cfg.trainer.get("resume"))
+    resume_path = s.out_dir / "state" / "resume.pt"
+    tracking.set_tag(run, "wsad.resume_checkpoint", str(resume_path.resolve()))
+    try:
+        with GracefulStop() as stop:
+            bar = tqdm(range(prog.epoch, s.epochs + 1), desc=f"train {cfg.get('recipe_name', '')}".strip(),
+                       unit="epoch", disable=not cfg.trainer.progress, initial=prog.epoch - 1,
+                       total=s.epochs)
+            for epoch in bar:
+                row = _train_epoch(cfg, s, prog, epoch, stop, resume_path, run)
+                started = time.perf_counter()
+                row.update(_evaluate_epoch(cfg, s, epoch))
+                row["time/eval_s"] = time.perf_counter() - started
+                prog.record(epoch, row, s, cfg.trainer.select)
+                tracking.log_metrics(run, row, step=epoch)
+                save_torch(resume_path, prog.snapshot(cfg, s))
+                bar.set_postfix(loss=f"{row['train_loss']:.4f}",
+                                val=f"{row.get('weak_val_video_auc', float('nan')):.3f}",
+                                auc=f"{row.get('frame_auc', float('nan')):.3f}")
+        result = _finish(cfg, s, prog, run)
+    except TrainingInterrupted:
+        tracking.log_state(run, resume_path)
+        tracking.finish(run, None, status="KILLED")
+        raise
+    except BaseException:
+        tracking.finish(run, None, status="FAILED")
+        raise
+    return result
+
+
+def _train_epoch(cfg, s: Setup, prog: Progress, epoch: int, stop: GracefulStop, resume_path: Path,
+                 run) -> dict:
+    """One pass over the epoch's batches (from ``prog.batch`` after a stop mid-epoch)."""
+    s.model.train()
+    started, segments = time.perf_counter(), 0
+    batches = s.bags.batches(s.items, epoch, int(cfg.seed))
+    for bi in range(prog.batch if epoch == prog.epoch else 0, len(batches)):
+        batch = s.loader.collate([s.items[i] for i in batches[bi]])
+        segments += int(batch.mask.sum())
+        res = step(s.model, s.pooling, s.terms, batch, s.optimizer, cfg.trainer.grad_clip)
+        prog.add_step(res.loss, res.terms)
+        if stop.requested:  # the step is done: save where we are, then stop
+            save_torch(resume_path, prog.snapshot(cfg, s, epoch, bi + 1))
+            raise TrainingInterrupted(
+                f"stopped by signal {stop.signum} in epoch {epoch} after batch {bi + 1}; "
+                f"resume with trainer.resume={run.run_id if run else '<run id>'}", stop.signum)
+    if s.schedule is not None:
+        s.schedule.step()
+    row = prog.close_epoch(s)
+    # what an epoch costs: the benchmarks and sweep planning read these
+    row.update({"time/train_s": time.perf_counter() - started, "train_segments": segments,
+                "train_batches": len(batches)})
+    return row
+
+
+def _evaluate_epoch(cfg, s: Setup, epoch: int) -> dict:
+    """Weak validation (video labels of held-out train cameras) every epoch; the
+    test metrics every ``trainer.eval_every`` epochs, for the learning curves."""
+    row, cache = {}, s.loader.cache  # one budget (data.cache_mb) for training bags and eval arrays
+    if s.val_videos:
+        vs = score_videos(s.model, s.store, s.val_videos, s.std, s.bags.chunks, cache=cache)
+        row["weak_val_video_auc"] = roc_auc([s.store.label(v) for v in s.val_videos],
+                                            [x.max() for x in vs.values()], "weak validation video AUC")
+    if epoch % int(cfg.trainer.eval_every) == 0 or epoch == s.epochs:
+        row.update(quiet_metrics(video_scores(s.store, score_videos(
+            s.model, s.store, s.test_videos, s.std, s.bags.chunks, cache=cache))))
+    return row
+
+
+def _finish(cfg, s: Setup, prog: Progress, run) -> RunResult:
+    """The selected model: final metrics, intervals, artifacts; the run is closed."""
+    s.model.load_state_dict(prog.best_state)
+    test = video_scores(s.store, score_videos(s.model, s.store, s.test_videos, s.std, s.bags.chunks))
+    final = quiet_metrics(test)
+    if int(cfg.trainer.bootstrap) > 0 and "frame_auc" in final:
+        final.update(grouped_bootstrap(test, int(cfg.trainer.bootstrap), seed=int(cfg.seed)))
+    final["selected_epoch"] = prog.best_epoch
+    selected = prog.history[prog.best_epoch - 1]
+    if "weak_val_video_auc" in selected:
+        final["weak_val_video_auc"] = selected["weak_val_video_auc"]
+    tracking.log_metrics(run, final, step=s.epochs)
+    export(s.out_dir, cfg, s, test, prog.history)
+    tracking.finish(run, s.out_dir)
+    objective = float(final.get("weak_val_video_auc", -prog.history[-1]["train_loss"]))
+    return RunResult(final, prog.history, s.out_dir, run.run_id if run else None, objective)
+
+
+def _resume_point(cfg: DictConfig) -> tuple[DictConfig, dict]:
+    """The saved state of run ``trainer.resume`` and the config it was started with."""
+    run_id = str(cfg.trainer.resume)
+    if not cfg.tracking.enabled:
+        raise WsadError("trainer.resume needs tracking (the run id names the run to continue)")
+    path = find_checkpoint(run_id, tracking.resolve_uri(str(cfg.tracking.uri)))
+    state = load_checkpoint(path)
+    saved = OmegaConf.create(state["config"])
+    saved.trainer.resume = run_id
+    saved.trainer.progress = cfg.trainer.progress
+    saved.tracking = cfg.tracking
+    return saved, state
+
+
+def _start_run(cfg: DictConfig, overrides, s: Setup, resume_id: str | None = None):
+    if not cfg.tracking.enabled:
+        return None
+    if resume_id:
+        return tracking.reopen_run(str(cfg.tracking.uri), str(resume_id))
+    return tracking.start_run(cfg, overrides, store_fingerprint(s.store.root))

@@ -1,0 +1,170 @@
+"""Everything a run is built from, made from the config before any batch is read."""
+from __future__ import annotations
+
+import os
+import random
+import tempfile
+import warnings
+from dataclasses import dataclass
+from pathlib import Path
+
+import numpy as np
+import torch
+from omegaconf import DictConfig
+
+from ..bags.base import BagConstruction
+from ..checkpoint import build_head
+from ..data.batch import BagLoader, Item
+from ..data.cache import ArrayCache
+from ..data.standardize import Standardizer
+from ..errors import WsadError
+from ..pooling.modules import Pooling
+from ..registry import build_component
+from ..store import FeatureStore, check_store
+from ..terms.base import Term
+
+SELECTIONS = ("last", "weak_val")
+SCHEDULES = (None, "cosine")
+
+
+def seed_everything(seed: int, threads: int | None) -> None:
+    random.seed(seed)
+    np.random.seed(seed)
+    torch.manual_seed(seed)
+    torch.use_deterministic_algorithms(True)
+    if threads is None:  # one thread per job when a sweep runs jobs side by side
+        threads = 1 if in_multirun() else (os.cpu_count() or 1)
+    torch.set_num_threads(max(1, int(threads)))
+
+
+def apply_ablation(cfg: DictConfig) -> None:
+    """ablation.toggle=<term>: off if the recipe uses it, on at ablation.on_weight.<term> if not."""
+    name = cfg.get("ablation", {}).get("toggle", "none")
+    if name in (None, "none"):
+        return
+    if name not in cfg.objective:
+        raise WsadError(f"ablation.toggle={name!r} is not a term; known: none, "
+                        f"{', '.join(cfg.objective.keys())}")
+    on = float(cfg.ablation.get("on_weight", {}).get(name, 1.0))
+    cfg.objective[name] = 0.0 if float(cfg.objective[name]) > 0 else on
+
+
+def weak_validation_split(store: FeatureStore, share: float) -> tuple[list[str], list[str]]:
+    """Hold out whole train groups (cameras) for weak validation: video AUC on
+    video labels, never test labels. Fixed by the data, not the seed, so every
+    variant and seed is selected on the same videos."""
+    train = store.videos("train")
+    if share <= 0:
+        return train, []
+    m = store.manifest[store.manifest["split"] == "train"]
+    groups = sorted(m["group"].unique())
+    rng = np.random.default_rng(12345)
+    held: list[str] = []
+    for g in rng.permutation(groups):
+        if len(held) >= share * len(groups):
+            break
+        held.append(g)
+    val = list(m[m["group"].isin(held)]["video"])
+    fit = list(m[~m["group"].isin(held)]["video"])
+    labels_val = {store.label(v) for v in val}
+    labels_fit = {store.label(v) for v in fit}
+    if labels_val != {0, 1} or labels_fit != {0, 1}:
+        # too few groups to hold some out by camera: hold out videos instead, with a warning
+        warnings.warn("weak validation could not be split by group with both labels on each "
+                      "side; holding out videos instead (cameras may then be shared)", stacklevel=2)
+        idx = rng.permutation(len(train))
+        n = max(2, int(round(share * len(train))))
+        val = [train[i] for i in idx[:n]]
+        fit = [train[i] for i in idx[n:]]
+    return fit, val
+
+
+def build_terms(cfg: DictConfig) -> dict[str, tuple[float, Term]]:
+    """The enabled terms with their weights, in the order of ``cfg.objective``."""
+    terms = {}
+    for name, weight in cfg.objective.items():
+        weight = float(weight)
+        if weight < 0:
+            raise WsadError(f"objective.{name}={weight}: weights must be >= 0 (0 disables a term)")
+        if weight == 0:
+            continue
+        if name not in cfg.terms:
+            raise WsadError(f"objective.{name} has no settings (no terms/{name}.yaml on the search "
+                            f"path); known terms: {', '.join(cfg.terms.keys())}")
+        terms[name] = (weight, build_component(cfg.terms[name], f"term {name}"))
+    if not terms:
+        raise WsadError("every objective weight is 0; enable a term, e.g. objective.bag_bce=1")
+    return terms
+
+
+@dataclass
+class Setup:
+    """Everything a run is built from (made by :func:`build` from the config)."""
+
+    store: FeatureStore
+    fit_videos: list[str]
+    val_videos: list[str]
+    test_videos: list[str]
+    std: Standardizer
+    bags: BagConstruction
+    pooling: Pooling
+    items: list[Item]
+    loader: BagLoader
+    model: torch.nn.Module
+    terms: dict[str, tuple[float, Term]]
+    optimizer: torch.optim.Optimizer
+    schedule: torch.optim.lr_scheduler.LRScheduler | None
+    epochs: int
+    out_dir: Path
+
+
+def build(cfg: DictConfig) -> Setup:
+    """Check the config's own settings and the store, split it, and build every component."""
+    if cfg.trainer.select not in SELECTIONS:
+        raise WsadError(f"trainer.select={cfg.trainer.select!r}; use one of {list(SELECTIONS)}")
+    if cfg.trainer.schedule not in SCHEDULES:
+        raise WsadError(f"trainer.schedule={cfg.trainer.schedule!r}; use null or cosine")
+    epochs = int(cfg.trainer.epochs)
+    if epochs < 1:
+        raise WsadError(f"trainer.epochs={epochs}; train for at least 1 epoch")
+    bags = build_component(cfg.bags, "bags")
+    pooling = build_component(cfg.pooling, "pooling")
+    terms = build_terms(cfg)
+    errors = [p for p in check_store(cfg.data.root) if p.severity == "error"]
+    if errors:
+        raise WsadError(f"the store {cfg.data.root} has {len(errors)} problem(s), first: {errors[0]}; "
+                        f"run wsad-check {cfg.data.root}")
+    store = FeatureStore(cfg.data.root, crops=cfg.data.crops)
+    fit_videos, val_videos = weak_validation_split(store, float(cfg.trainer.weak_val_share))
+    if cfg.trainer.select == "weak_val" and not val_videos:
+        raise WsadError("trainer.select=weak_val needs trainer.weak_val_share > 0")
+    std = Standardizer.fit(store, fit_videos) if cfg.data.standardize else Standardizer()
+    model = build_head(cfg, store.dim)
+    pooling.check(model)
+    optimizer = build_component(cfg.optim, "optim", params=model.parameters())
+    schedule = None
+    if cfg.trainer.schedule == "cosine":
+        schedule = torch.optim.lr_scheduler.CosineAnnealingLR(optimizer, T_max=epochs)
+    out_dir = Path(cfg.trainer.out_dir or hydra_dir() or tempfile.mkdtemp(prefix="wsad-run-"))
+    loader = BagLoader(store, bags, std, ArrayCache(float(cfg.data.cache_mb)))
+    return Setup(store, fit_videos, val_videos, store.videos("test"), std, bags, pooling,
+                 bags.items(store, fit_videos), loader, model, terms, optimizer, schedule, epochs, out_dir)
+
+
+def in_multirun() -> bool:
+    try:
+        from hydra.core.hydra_config import HydraConfig
+        from hydra.types import RunMode
+
+        return HydraConfig.get().mode == RunMode.MULTIRUN
+    except Exception:  # noqa: BLE001 - not running under Hydra
+        return False
+
+
+def hydra_dir() -> str | None:
+    try:
+        from hydra.core.hydra_config import HydraConfig
+
+        return HydraConfig.get().runtime.output_dir
+    except Exception:  # noqa: BLE001 - not running under Hydra
+        return None
