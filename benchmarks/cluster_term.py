@@ -17,7 +17,6 @@ from __future__ import annotations
 
 import numpy as np
 import torch
-
 from _common import best_of, emit, size_arg, store
 
 SHAPE = {"tiny": (8, 40, 32), "quick": (64, 250, 512), "full": (64, 250, 512)}
@@ -83,8 +82,8 @@ def step_share(root) -> dict:
 def run(size: str) -> dict:
     from sklearn.cluster import KMeans
 
-    from wsad.terms.cluster_distance import ClusterDistance, sketched_two_means
     from wsad.terms.base import TermInputs
+    from wsad.terms.cluster_distance import ClusterDistance, sketched_two_means
 
     root = store(size)
     b, t, h = SHAPE[size]

@@ -13,7 +13,6 @@ first resamples with a per-resample recomputation on the same indices.
 from __future__ import annotations
 
 import numpy as np
-
 from _common import best_of, emit, size_arg, store
 
 RESAMPLES = 1000
@@ -39,8 +38,7 @@ def scored_videos(root):
 def run(size: str) -> dict:
     from sklearn.metrics import roc_auc_score
 
-    from wsad.evaluate import (bootstrap_naive, compute_metrics, frame_table, grouped_bootstrap,
-                               grouped_bootstrap_values)
+    from wsad.evaluate import bootstrap_naive, compute_metrics, frame_table, grouped_bootstrap, grouped_bootstrap_values
 
     videos = scored_videos(store(size))
     table = frame_table(videos)

@@ -16,9 +16,8 @@ import sys
 import time
 from pathlib import Path
 
-from tqdm.auto import tqdm
-
 from _common import machine, size_arg
+from tqdm.auto import tqdm
 
 SCRIPTS = ["train_floor.py", "cluster_term.py", "evaluation.py", "memory.py", "scaling.py"]
 

@@ -15,7 +15,6 @@ import tempfile
 
 import numpy as np
 import pandas as pd
-
 from _common import emit, size_arg, store
 
 # (cameras per scene context, training videos per camera) -> 3 * c * v training videos

@@ -18,10 +18,9 @@ import time
 
 import pandas as pd
 import torch
+from _common import best_of, emit, size_arg, store
 from torch import nn
 from torch.nn import functional as F
-
-from _common import best_of, emit, size_arg, store
 
 RECIPES = ("topk", "windows", "mil_ranking")
 EPOCHS = 4

@@ -11,7 +11,6 @@ import sys
 import tempfile
 from pathlib import Path
 
-
 from wsad.report import load_runs
 from wsad.store import FeatureStore
 from wsad.synthetic import generate_store, load_scenario, oracle_frame_auc

@@ -10,8 +10,14 @@ import tempfile
 from pathlib import Path
 
 from wsad.store import FeatureStore
-from wsad.synthetic import (anomalous_segment_share, generate_store, lag1_autocorrelation,
-                            load_scenario, oracle_frame_auc, scenario_names)
+from wsad.synthetic import (
+    anomalous_segment_share,
+    generate_store,
+    lag1_autocorrelation,
+    load_scenario,
+    oracle_frame_auc,
+    scenario_names,
+)
 
 
 def measure(name: str, work: Path) -> dict:

@@ -10,6 +10,9 @@ import torch
 
 from wsad.synthetic import generate_store, load_scenario
 
+#: The repository (notebooks, DEVELOPERS.md, Makefile); the package itself may be installed elsewhere.
+REPO = Path(__file__).resolve().parent.parent
+
 # A small version of the default scenario: seconds to make, still two classes per split.
 SMALL = ["videos_per_camera.train=4", "videos_per_camera.test=4", "length.mean=40",
          "length.max=120"]

@@ -4,8 +4,8 @@ from __future__ import annotations
 import numpy as np
 import pytest
 
-from wsad.bags import (AnomalousNormalPairs, BagLoader, Standardizer, WholeVideo, Windows,
-                       resample_chunks)
+from wsad.bags import AnomalousNormalPairs, WholeVideo, Windows
+from wsad.data import ArrayCache, BagLoader, Standardizer, resample_chunks
 from wsad.errors import WsadError
 from wsad.store import FeatureStore
 
@@ -78,7 +78,7 @@ def test_balanced_batches_and_pairs(store):
 def test_whole_packing_and_mask(store, cache_mb):
     # Packed rows are the store's segments in order, whether read from the cache or the memory map.
     whole = WholeVideo(per_class=2)
-    loader = BagLoader(store, whole, Standardizer(), cache_mb)
+    loader = BagLoader(store, whole, Standardizer(), ArrayCache(cache_mb))
     items = whole.items(store, store.videos("train"))
     batch = loader.collate(items[:4])
     assert len(batch.x) == int(batch.mask.sum())
@@ -99,7 +99,7 @@ def test_standardised_batches_match_numpy_on_both_paths(store):
                            - std.mean) / std.std for it in items])
     got = {}
     for cache_mb in (0, 512):
-        got[cache_mb] = BagLoader(store, Windows(size=8), std, cache_mb).collate(items).x.numpy()
+        got[cache_mb] = BagLoader(store, Windows(size=8), std, ArrayCache(cache_mb)).collate(items).x.numpy()
         np.testing.assert_allclose(got[cache_mb], ref, rtol=1e-5, atol=1e-5)
     # bit for bit: a resumed run (cache empty) must see the numbers the first run saw
     np.testing.assert_array_equal(got[0], got[512])

@@ -7,12 +7,12 @@ import sys
 import types
 
 import pytest
+from conftest import REPO
 
-from wsad import PROJECT_ROOT
 from wsad.config import compose_config
 from wsad.train import train
 
-GUIDE = (PROJECT_ROOT / "DEVELOPERS.md").read_text()
+GUIDE = (REPO / "DEVELOPERS.md").read_text()
 BLOCKS = re.findall(r"```python\n# (wsad/\S+)\.py\n(.*?)```", GUIDE, re.S)
 YAMLS = re.findall(r"```yaml\n# (conf/(?:bags|head)/\S+\.yaml)\n(.*?)```", GUIDE, re.S)
 

@@ -3,11 +3,11 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
-
 from conftest import make_store, tree_hash
+
 from wsad.errors import WsadError
 from wsad.store import FeatureStore, check_store
-from wsad.synthetic import (lag1_autocorrelation, load_scenario, oracle_frame_auc)
+from wsad.synthetic import lag1_autocorrelation, load_scenario, oracle_frame_auc
 
 
 @pytest.mark.parametrize("rho", [0.0, 0.5, 0.9])
@@ -84,8 +84,9 @@ def test_context_event_is_routine_in_loading_bay(tmp_path):
     """forklift signature appears in normal loading-bay videos, never as an event there."""
     st = FeatureStore(make_store(tmp_path / "ctx", scenario="warehouse_context",
                                  overrides=["events.snr=6", "busy.rate=0"]))
-    from wsad.synthetic import Signatures
     from omegaconf import OmegaConf
+
+    from wsad.synthetic import Signatures
     sig = Signatures.build(OmegaConf.create(st.meta["scenario"]))
     u = sig.event["forklift_in_walkway"]
     bay_normal = [v for v in st.videos() if v.startswith("loading_bay") and st.label(v) == 0]

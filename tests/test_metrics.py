@@ -6,10 +6,19 @@ import pytest
 from scipy.stats import mannwhitneyu
 from sklearn.metrics import average_precision_score, roc_auc_score
 
+from wsad.data import chunk_bounds, chunks_to_segments
 from wsad.errors import WsadError
-from wsad.evaluate import (VideoScores, average_precision, bootstrap_naive, chunk_bounds,
-                           chunks_to_segments, compute_metrics, grouped_bootstrap,
-                           grouped_bootstrap_values, per_video_table, roc_auc, segments_to_frames)
+from wsad.evaluate import (
+    VideoScores,
+    average_precision,
+    bootstrap_naive,
+    compute_metrics,
+    grouped_bootstrap,
+    grouped_bootstrap_values,
+    per_video_table,
+    roc_auc,
+)
+from wsad.store import segments_to_frames
 
 
 @pytest.mark.parametrize("seed", range(5))

@@ -13,11 +13,10 @@ from pathlib import Path
 
 import nbformat
 import pytest
+from conftest import REPO
 from nbclient import NotebookClient
 
-from wsad import PROJECT_ROOT
-
-NOTEBOOKS = sorted((PROJECT_ROOT / "notebooks").glob("*.ipynb"))
+NOTEBOOKS = sorted((REPO / "notebooks").glob("*.ipynb"))
 
 
 def test_there_are_four_walkthroughs():
@@ -84,7 +83,7 @@ def test_jupyter_server_answers_on_loopback(tmp_path):
     exe = Path(sys.executable).with_name("jupyter")
     root = ["--allow-root"] if os.geteuid() == 0 else []
     proc = subprocess.Popen([str(exe), "lab", "--no-browser", "--ip", "127.0.0.1", "--port", str(port), *root,
-                             "--IdentityProvider.token=wsadtest", f"--ServerApp.root_dir={PROJECT_ROOT / 'notebooks'}"],
+                             "--IdentityProvider.token=wsadtest", f"--ServerApp.root_dir={REPO / 'notebooks'}"],
                             stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, cwd=tmp_path)
     try:
         deadline = time.time() + 90
@@ -104,5 +103,5 @@ def test_jupyter_server_answers_on_loopback(tmp_path):
     finally:
         proc.terminate()
         proc.wait(timeout=30)
-    make = subprocess.run(["make", "-n", "lab"], cwd=PROJECT_ROOT, capture_output=True, text=True)
+    make = subprocess.run(["make", "-n", "lab"], cwd=REPO, capture_output=True, text=True)
     assert "--ip 127.0.0.1" in make.stdout

@@ -18,10 +18,10 @@ import numpy as np
 import pandas as pd
 import pytest
 import torch
+from conftest import REPO, tree_hash
 from hypothesis import HealthCheck, given, settings
 from hypothesis import strategies as st
 
-from conftest import tree_hash
 from wsad.store import check_store, store_fingerprint
 
 CLI = "import sys; from wsad.cli.{0} import main; sys.argv=['x']+sys.argv[1:]; main()"
@@ -120,7 +120,7 @@ def test_train_refuses_a_broken_store_in_one_line(small_store, tmp_path):
     before = tree_hash(root)
     res = cli(tmp_path, "train", f"data.root={root}", "tracking.enabled=false")
     assert res.returncode == 2 and "Traceback" not in res.stderr
-    lines = [l for l in res.stderr.splitlines() if l.strip()]
+    lines = [ln for ln in res.stderr.splitlines() if ln.strip()]
     assert len(lines) == 1 and m.video[0] in lines[0] and "wsad-check" in lines[0]
     assert tree_hash(root) == before
 
@@ -140,7 +140,7 @@ def test_bad_configuration_is_one_clear_line(small_store, tmp_path, args, expect
     root = [f"data.root={small_store}"] if expect is not None else []
     res = cli(tmp_path, "train", *root, *args, "tracking.enabled=false", "trainer.epochs=1")
     assert res.returncode == 2, res.stderr
-    lines = [l for l in res.stderr.splitlines() if l.strip()]
+    lines = [ln for ln in res.stderr.splitlines() if ln.strip()]
     assert len(lines) == 1, res.stderr
     assert (expect or "data.root=DIR is required") in lines[0]
 
@@ -259,7 +259,5 @@ def test_crafted_checkpoint_is_refused_without_running_code(small_store, tmp_pat
 
 
 def test_services_bind_to_loopback():
-    from wsad import PROJECT_ROOT
-
-    out = subprocess.run(["make", "-n", "ui"], cwd=PROJECT_ROOT, capture_output=True, text=True)
+    out = subprocess.run(["make", "-n", "ui"], cwd=REPO, capture_output=True, text=True)
     assert "--host 127.0.0.1" in out.stdout

@@ -9,8 +9,7 @@ import pytest
 from scipy import stats
 
 from wsad.errors import WsadError
-from wsad.report import (build_report, markdown_table, paired_tests, t_interval, varying_params,
-                         write_report)
+from wsad.report import build_report, markdown_table, paired_tests, t_interval, varying_params, write_report
 
 
 def test_t_interval_matches_scipy():

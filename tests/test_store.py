@@ -11,16 +11,16 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
-
 from conftest import tree_hash
+
 from wsad.errors import WsadError
 from wsad.store import FeatureStore, build_store, check_store, store_fingerprint
 
 
 def run_cli(tmp_path: Path, *args: str) -> subprocess.CompletedProcess:
     """A console script as a user runs it (a real process)."""
-    code = ("import sys; from wsad.cli.{m} import main; sys.argv=['x']+sys.argv[1:]; main()"
-            .format(m=args[0]))
+    code = (f"import sys; from wsad.cli.{args[0]} import main; sys.argv=['x']+sys.argv[1:]; main()"
+            )
     return subprocess.run([sys.executable, "-c", code, *args[1:]], capture_output=True, text=True,
                           cwd=tmp_path, timeout=120)
 

@@ -130,23 +130,15 @@ def test_parallel_workers_log_to_a_real_server(small_store, tmp_path, mlflow_ser
 
 
 def test_sweep_presets_compose():
-    from hydra import compose, initialize_config_dir
-    from hydra.core.global_hydra import GlobalHydra
-
-    from wsad.config import CONF_DIR
-
-    GlobalHydra.instance().clear()
-    with initialize_config_dir(config_dir=str(CONF_DIR), version_base="1.3"):
-        cfg = compose("config", overrides=["data.root=x", "sweep=[terms,seeds]"], return_hydra_config=True)
-        params = cfg.hydra.sweeper.params
-        assert params["ablation.toggle"] == "none,smoothness,sparsity,cluster_distance"
-        assert params["seed"] == "0,1,2,3,4"
-        cfg = compose("config", overrides=["data.root=x", "sweep=bags"], return_hydra_config=True)
-        assert cfg.hydra.sweeper.params["bags"] == "windows_sequential,windows,whole,pairs"
-        cfg = compose("config", overrides=["data.root=x", "sweep=optuna"], return_hydra_config=True)
-        assert cfg.hydra.sweeper.direction == "maximize"
-        assert not any("frame" in k or "test" in k for k in cfg.hydra.sweeper.params)
-    GlobalHydra.instance().clear()
+    cfg = compose_config(["data.root=x", "sweep=[terms,seeds]"], return_hydra_config=True)
+    params = cfg.hydra.sweeper.params
+    assert params["ablation.toggle"] == "none,smoothness,sparsity,cluster_distance"
+    assert params["seed"] == "0,1,2,3,4"
+    cfg = compose_config(["data.root=x", "sweep=bags"], return_hydra_config=True)
+    assert cfg.hydra.sweeper.params["bags"] == "windows_sequential,windows,whole,pairs"
+    cfg = compose_config(["data.root=x", "sweep=optuna"], return_hydra_config=True)
+    assert cfg.hydra.sweeper.direction == "maximize"
+    assert not any("frame" in k or "test" in k for k in cfg.hydra.sweeper.params)
 
 
 def test_ablation_toggle_switches_one_term(small_store):

@@ -6,14 +6,30 @@ import numpy as np
 import pytest
 import torch
 import torch.nn.functional as F
+from conftest import CountTorchCalls
 from sklearn.cluster import KMeans
 
-from conftest import CountTorchCalls
-from wsad.heads import GatedAttentionHead, MLPHead, TemporalConvHead
-from wsad.heads.base import HeadOutput
-from wsad.pooling import pool, topk_mean
-from wsad.terms import (BagBCE, ClusterDistance, RankingHinge, Smoothness, Sparsity, TermInputs,
-                        VideoBCE, two_means)
+from wsad.cluster import two_means
+from wsad.heads import GatedAttentionHead, HeadOutput, MLPHead, TemporalConvHead
+from wsad.pooling import AttentionPooling, MaxPooling, MeanPooling, TopKPooling, topk_mean
+from wsad.terms import TermInputs
+from wsad.terms.bag_bce import BagBCE
+from wsad.terms.cluster_distance import ClusterDistance
+from wsad.terms.ranking_hinge import RankingHinge
+from wsad.terms.smoothness import Smoothness
+from wsad.terms.sparsity import Sparsity
+from wsad.terms.video_bce import VideoBCE
+
+
+def inputs(logits, emb, mask, y, bag=None, pairs=None) -> TermInputs:
+    """A hand-made batch as the terms see it (scores = sigmoid(logits))."""
+    return TermInputs.of(HeadOutput(logits, emb, mask), y, bag, pairs)
+
+
+def padded_two_means(e, mask, n_init=1, n_iter=5, tol=0.0, sketch_dim=0):
+    """two_means on a padded block [B, T, H]: assignments back as [B, T]."""
+    assign, inertia = two_means(e[mask], mask, n_init=n_init, n_iter=n_iter, tol=tol, sketch_dim=sketch_dim)
+    return unpack_bool(assign, mask), inertia
 
 
 def _batch(seed=0, b=6, t=20, h=5, pad=True):
@@ -23,10 +39,9 @@ def _batch(seed=0, b=6, t=20, h=5, pad=True):
     logits = torch.randn(b, t, generator=g, dtype=torch.float64)
     emb = torch.randn(b, t, h, generator=g, dtype=torch.float64)
     y = torch.tensor([1.0, 0.0] * (b // 2), dtype=torch.float64)
-    scores = torch.sigmoid(logits)
-    bag = topk_mean(scores, mask, None)
+    bag = topk_mean(torch.sigmoid(logits), mask, None)
     pairs = torch.stack([torch.arange(0, b, 2), torch.arange(1, b, 2)], 1)
-    return TermInputs(scores, logits, mask, y, bag, emb, pairs)
+    return inputs(logits, emb, mask, y, bag, pairs)
 
 
 def _padded_copy(inp: TermInputs, extra=7, fill=5.0) -> TermInputs:
@@ -41,7 +56,7 @@ def _padded_copy(inp: TermInputs, extra=7, fill=5.0) -> TermInputs:
     logits = grow(inp.logits, fill).masked_fill(~mask, fill)
     logits = torch.where(mask, grow(inp.logits, 0.0), torch.full_like(logits, fill))
     emb = torch.where(mask[..., None], grow(inp.embeddings, 0.0), torch.full_like(grow(inp.embeddings, 0.0), fill))
-    return TermInputs(torch.sigmoid(logits), logits, mask, inp.y, inp.bag_scores, emb, inp.pairs)
+    return inputs(logits, emb, mask, inp.y, inp.bag_scores, inp.pairs)
 
 
 def test_ranking_hinge_matches_margin_ranking_loss():
@@ -102,10 +117,8 @@ def test_topk_pooling_matches_numpy_sort(k):
 def test_padding_never_changes_terms_or_pooling():
     inp = _batch(4)
     big = _padded_copy(inp)
-    out_small = HeadOutput(inp.logits, inp.embeddings)
-    out_big = HeadOutput(big.logits, big.embeddings)
-    for kind in ("max", "topk", "mean"):
-        torch.testing.assert_close(pool(kind, out_small, inp.mask), pool(kind, out_big, big.mask))
+    for pooling in (MaxPooling(), TopKPooling(), TopKPooling(3), MeanPooling()):
+        torch.testing.assert_close(pooling(inp.out, inp.mask), pooling(big.out, big.mask))
     torch.manual_seed(0)
     for term in (VideoBCE(), BagBCE(), RankingHinge(), Smoothness("all"), Sparsity(),
                  Sparsity(per_segment=True), ClusterDistance(margin=2.0, n_init=1)):
@@ -143,7 +156,7 @@ def test_gated_attention_matches_paper_formula():
     torch.testing.assert_close(out.attention[0], a)
     z = (a[:, None] * h).sum(0)
     torch.testing.assert_close(out.bag_logits[0], head.score(z).squeeze())
-    assert pool("attention", out, mask).item() == pytest.approx(torch.sigmoid(head.score(z)).item(), abs=1e-6)
+    assert AttentionPooling()(out, mask).item() == pytest.approx(torch.sigmoid(head.score(z)).item(), abs=1e-6)
 
 
 def test_two_means_same_partition_as_sklearn_on_separated_data():
@@ -158,7 +171,7 @@ def test_two_means_same_partition_as_sklearn_on_separated_data():
         pad = np.zeros((60 - len(x), 4))
         bags.append(np.r_[x, pad])
         masks.append(np.arange(60) < len(x))
-    assign, _ = two_means(torch.tensor(np.array(bags)), torch.tensor(np.array(masks)))
+    assign, _ = padded_two_means(torch.tensor(np.array(bags)), torch.tensor(np.array(masks)), 4, 30)
     for i, ref in enumerate(refs):
         got = assign[i][torch.tensor(masks[i])].numpy().astype(int)
         assert (got == ref).all() or (got == 1 - ref).all()
@@ -171,8 +184,8 @@ def test_two_means_inertia_close_to_sklearn_best(seed):
     rng = np.random.default_rng(seed)
     x = np.r_[rng.normal(0, 1, (90, 6)), rng.normal(rng.normal(0, 1.5, 6), 1, (60, 6))]
     torch.manual_seed(seed)
-    _, inertia = two_means(torch.tensor(x)[None], torch.ones(1, len(x), dtype=torch.bool),
-                           n_init=16, n_iter=100)
+    _, inertia = two_means(torch.tensor(x), torch.ones(1, len(x), dtype=torch.bool),
+                           n_init=16, n_iter=100, tol=0.0)
     ref = KMeans(2, n_init=10, random_state=seed).fit(x).inertia_
     assert inertia.item() <= ref * (1 + 1e-4)
 
@@ -182,14 +195,14 @@ def test_cluster_distance_gradients_and_direction():
     emb = torch.randn(4, 30, 3, requires_grad=True)
     mask = torch.ones(4, 30, dtype=torch.bool)
     y = torch.tensor([1.0, 1.0, 0.0, 0.0])
-    inp = TermInputs(torch.rand(4, 30), torch.zeros(4, 30), mask, y, torch.rand(4), emb, None)
+    inp = inputs(torch.zeros(4, 30), emb, mask, y)
     torch.manual_seed(5)
     loss = ClusterDistance(margin=10.0, n_init=2, n_iter=20, tol=0.0)(inp)
     loss.backward()
     assert emb.grad.abs().sum() > 0
     # normal bags: the loss is the distance itself; anomalous: hinge of the margin
     torch.manual_seed(5)
-    assign, _ = two_means(emb.detach(), mask, 2, 20)
+    assign, _ = padded_two_means(emb.detach(), mask, 2, 20)
     d = []
     for i in range(4):
         a = assign[i]
@@ -206,8 +219,7 @@ def test_cluster_term_has_no_python_loop_over_bags():
         torch.manual_seed(0)
         emb = torch.randn(b, 40, 16, requires_grad=True)
         mask = torch.arange(40)[None] < torch.randint(10, 41, (b,))[:, None]
-        inp = TermInputs(torch.rand(b, 40), torch.zeros(b, 40), mask, (torch.arange(b) % 2).float(),
-                         torch.rand(b), emb, None)
+        inp = inputs(torch.zeros(b, 40), emb, mask, (torch.arange(b) % 2).float())
         with CountTorchCalls() as mode:
             ClusterDistance(n_init=3, n_iter=1)(inp).backward()
         counts.append(mode.calls)
@@ -218,9 +230,9 @@ def test_batched_two_means_equals_one_bag_at_a_time():
     torch.manual_seed(0)
     e = torch.randn(5, 25, 4, dtype=torch.float64)
     mask = torch.arange(25)[None] < torch.tensor([25, 20, 9, 14, 3])[:, None]
-    together, inertia = two_means(e, mask, n_init=1, n_iter=50)
+    together, inertia = padded_two_means(e, mask, n_init=1, n_iter=50)
     for i in range(5):
-        one, one_inertia = two_means(e[i:i + 1], mask[i:i + 1], n_init=1, n_iter=50)
+        one, one_inertia = padded_two_means(e[i:i + 1], mask[i:i + 1], n_init=1, n_iter=50)
         assert torch.equal(one[0], together[i])
         assert one_inertia.item() == pytest.approx(inertia[i].item())
 
@@ -234,8 +246,6 @@ def test_sketched_two_means_near_sklearn_on_digits():
     # the same sketch without its signs measured 4.9%, the first 16 units alone 4.6%).
     from sklearn.datasets import load_digits
 
-    from wsad.terms.cluster_distance import sketched_two_means
-
     pixels = torch.from_numpy(load_digits().data.astype(np.float32)[:1500])
     mask = torch.ones(10, 150, dtype=torch.bool)
     excess = []
@@ -243,7 +253,7 @@ def test_sketched_two_means_near_sklearn_on_digits():
         g = torch.Generator().manual_seed(seed)
         x = torch.relu(pixels @ torch.randn(64, 256, generator=g) / 8).numpy()
         torch.manual_seed(0)
-        assign, _ = sketched_two_means(torch.from_numpy(x), mask, 16, 4, 50, 1e-4)
+        assign, _ = two_means(torch.from_numpy(x), mask, n_init=4, n_iter=50, tol=1e-4, sketch_dim=16)
         assign = assign.view(10, 150).numpy()
         ours = refs = 0.0
         for i in range(10):
@@ -259,16 +269,14 @@ def test_sketched_two_means_near_sklearn_on_digits():
 def test_cluster_distance_on_packed_bags_of_varied_length():
     # The block products give d = ||mean(cluster 1) - mean(cluster 0)|| per bag, as an explicit
     # per-bag NumPy computation with the same partition does (bags longer than one block).
-    from wsad.terms.cluster_distance import sketched_two_means
-
     torch.manual_seed(3)
     lengths = torch.tensor([5, 40, 17, 33, 8, 21, 40, 2, 29, 11, 36, 14])
     mask = torch.arange(40)[None] < lengths[:, None]
     emb = torch.randn(12, 40, 64) * mask[..., None]
     y = (torch.arange(12) % 2).float()
     term = ClusterDistance(margin=50.0)
-    loss = term(TermInputs(None, None, mask, y, None, emb, None))
-    assign, _ = sketched_two_means(emb[mask], mask, term.sketch_dim, term.n_init, term.n_iter, term.tol)
+    loss = term(inputs(torch.zeros(12, 40), emb, mask, y))
+    assign, _ = two_means(emb[mask], mask, term.n_init, term.n_iter, term.tol, term.sketch_dim)
     a = unpack_bool(assign, mask)
     ref = []
     for i in range(12):
@@ -306,3 +314,44 @@ def test_dropout_keeps_torch_dropout_contract():
     assert torch.equal(drop(x.detach()), out.detach())           # same seed, same mask
     drop.eval()
     assert torch.equal(drop(x.detach()), x.detach())
+
+
+def test_two_means_exact_path_honours_tol():
+    # The stop rule of scikit-learn's KMeans (Lloyd on the full rows): with a tolerance far
+    # above any centre shift, a start stops after its first update, i.e. as n_iter=1 does;
+    # with tol=0 it runs to convergence. On overlapping blobs the two partitions differ.
+    rng = np.random.default_rng(4)
+    x = torch.tensor(np.r_[rng.normal(0, 1, (80, 5)), rng.normal(0.8, 1, (80, 5))])[None]
+    mask = torch.ones(1, 160, dtype=torch.bool)
+    loose, _ = padded_two_means(x, mask, 1, 50, tol=1e9)
+    one, _ = padded_two_means(x, mask, 1, 1, tol=0.0)
+    full, _ = padded_two_means(x, mask, 1, 50, tol=0.0)
+    assert torch.equal(loose, one)
+    assert not torch.equal(loose, full)
+
+
+def test_two_means_refuses_bad_input_in_one_line():
+    rows, mask = torch.randn(10, 4), torch.ones(2, 5, dtype=torch.bool)
+    with pytest.raises(ValueError, match="real segments"):
+        two_means(rows[:9], mask)
+    with pytest.raises(ValueError, match="n_init"):
+        two_means(rows, mask, n_init=0)
+    with pytest.raises(ValueError, match="bool mask"):
+        two_means(rows, mask.float())
+
+
+def test_functional_forms_are_what_the_terms_compute():
+    # Each term is a thin class over its functional form: the same value on the same batch.
+    from wsad.terms.bag_bce import bag_bce
+    from wsad.terms.ranking_hinge import ranking_hinge
+    from wsad.terms.smoothness import smoothness
+    from wsad.terms.sparsity import sparsity
+    from wsad.terms.video_bce import video_bce
+
+    inp = _batch(7)
+    anom = inp.y > 0.5
+    assert RankingHinge(0.7)(inp) == ranking_hinge(inp.scores, inp.mask, inp.y, inp.pairs, 0.7)
+    assert Smoothness("anomalous")(inp) == smoothness(inp.scores, inp.mask, anom)
+    assert Sparsity(per_segment=True)(inp) == sparsity(inp.scores, inp.mask, anom, True)
+    assert VideoBCE()(inp) == video_bce(inp.logits, inp.mask, inp.y)
+    assert BagBCE()(inp) == bag_bce(inp.bag_scores, inp.y)

@@ -9,9 +9,9 @@ import mlflow
 import pandas as pd
 import pytest
 import torch
+from conftest import CountTorchCalls, make_store
 from sklearn.metrics import roc_auc_score
 
-from conftest import CountTorchCalls, make_store
 from wsad.config import compose_config
 from wsad.errors import WsadError
 from wsad.train import train
@@ -27,8 +27,8 @@ def run(store, tmp_path, recipe, extra=(), tracking=True):
                           f"trainer.out_dir={tmp_path}/out_{recipe}", f"tracking.uri={uri}",
                           f"tracking.enabled={str(tracking).lower()}", "trainer.bootstrap=200",
                           *BUDGET.get(recipe, []), *extra])
-    value = train(cfg)
-    return value, dict(train.last_result), uri
+    res = train(cfg)
+    return res.objective, {**res.metrics, "out_dir": str(res.out_dir), "run_id": res.run_id}, uri
 
 
 @pytest.mark.parametrize("recipe", ["topk", "windows", "mil_ranking"])
@@ -87,50 +87,33 @@ def test_each_crop_as_its_own_bag(tmp_path):
 
 
 @pytest.mark.parametrize("recipe", ["topk", "windows", "mil_ranking"])
-def test_training_step_has_no_per_video_loop(small_store, recipe):
+def test_training_step_has_no_per_video_loop(small_store, tmp_path, recipe):
     """One step's torch calls do not grow with the number of bags in the batch."""
-    from hydra.utils import instantiate
-    from omegaconf import OmegaConf
+    from wsad.train import build, objective
 
-    from wsad.bags import BagLoader, Standardizer
-    from wsad.model_io import build_head
-    from wsad.pooling import pool
-    from wsad.store import FeatureStore
-    from wsad.terms import TermInputs
-    from wsad.train import build_terms
-
-    cfg = compose_config([f"data.root={small_store}", f"recipe={recipe}",
-                          "objective.cluster_distance=1e-3", "terms.cluster_distance.n_iter=1"])
-    store = FeatureStore(small_store)
-    bag_cfg = OmegaConf.to_container(cfg.bags)
-    pooling, k = bag_cfg.pop("pooling"), bag_cfg.pop("k")
-    bags = instantiate(bag_cfg)
-    loader = BagLoader(store, bags, Standardizer())
-    items = bags.items(store, store.videos("train"))
-    if hasattr(bags, "size"):  # full windows only, so both batch sizes take the same (equal-length) path
-        items = [it for it in items if it.length == bags.size]
-    model = build_head(cfg, store.dim)
-    terms = build_terms(cfg)
+    s = build(compose_config([f"data.root={small_store}", f"recipe={recipe}", "tracking.enabled=false",
+                              "objective.cluster_distance=1e-3", "terms.cluster_distance.n_iter=1",
+                              f"trainer.out_dir={tmp_path}"]))
+    items = s.items
+    if hasattr(s.bags, "size"):  # full windows only, so both batch sizes take the same (equal-length) path
+        items = [it for it in items if it.length == s.bags.size]
     counts = []
     for n in (2, 6):
         pos = [it for it in items if it.label == 1][:n]
         neg = [it for it in items if it.label == 0][:n]
-        batch = loader.collate(pos + neg)
+        batch = s.loader.collate(pos + neg)
         if batch.pairs is not None:
             batch.pairs = torch.stack([torch.arange(n), torch.arange(n, 2 * n)], 1)
         torch.manual_seed(0)
         with CountTorchCalls() as mode:
-            out = model(batch.x, batch.mask)
-            bag = pool(pooling, out, batch.mask, k)
-            inp = TermInputs(out.scores, out.logits, batch.mask, batch.y, bag, out.embeddings, batch.pairs)
-            loss = sum(w * t(inp) for w, t in terms.values())
+            loss, _ = objective(s.model, s.pooling, s.terms, batch)
             loss.backward()
         counts.append(mode.calls)
     assert counts[0] == counts[1]
 
 
 def _cli(tmp_path, *args):
-    code = "import sys; from wsad.cli.{0} import main; sys.argv=['x']+sys.argv[1:]; main()".format(args[0])
+    code = f"import sys; from wsad.cli.{args[0]} import main; sys.argv=['x']+sys.argv[1:]; main()"
     return subprocess.run([sys.executable, "-c", code, *args[1:]], capture_output=True, text=True,
                           cwd=tmp_path, timeout=300)
 
@@ -161,3 +144,27 @@ def test_bad_training_config_is_one_clear_line(small_store, tmp_path):
     with pytest.raises(WsadError, match="every objective weight is 0"):
         train(compose_config([f"data.root={small_store}", "objective.bag_bce=0",
                               "tracking.enabled=false"]))
+
+
+def test_step_is_the_update_the_loop_makes(small_store, tmp_path):
+    # The loop's first epoch is step() over the epoch's batches: replaying them with step() on a
+    # freshly built setup (same seed) gives the same parameters as a 1-epoch run, bit for bit.
+    from wsad.checkpoint import load_checkpoint
+    from wsad.train import build, seed_everything, step
+
+    over = [f"data.root={small_store}", "recipe=windows", "tracking.enabled=false", "trainer.epochs=1",
+            "trainer.progress=false", "trainer.bootstrap=0", "trainer.select=last", f"trainer.out_dir={tmp_path}"]
+    train(compose_config(over))
+    trained = load_checkpoint(tmp_path / "model" / "checkpoint.pt")["state_dict"]
+    cfg = compose_config(over)
+    seed_everything(int(cfg.seed), cfg.trainer.threads)
+    s = build(cfg)
+    s.model.train()
+    losses = []
+    for b in s.bags.batches(s.items, 1, int(cfg.seed)):
+        losses.append(step(s.model, s.pooling, s.terms, s.loader.collate([s.items[i] for i in b]),
+                           s.optimizer).loss)
+    for name, value in s.model.state_dict().items():
+        assert torch.equal(value, trained[name]), name
+    history = pd.read_csv(tmp_path / "scores" / "history.csv")
+    assert history.train_loss.iloc[0] == pytest.approx(sum(losses) / len(losses), rel=1e-12)

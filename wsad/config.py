@@ -11,11 +11,16 @@ from .resources import CONF_DIR
 __all__ = ["CONF_DIR", "compose_config"]
 
 
-def compose_config(overrides: list[str] | None = None) -> DictConfig:
+def compose_config(overrides: list[str] | None = None, return_hydra_config: bool = False) -> DictConfig:
     """The config ``wsad-train`` would run with these overrides, e.g.
-    ``compose_config(["data.root=store", "recipe=windows", "bags.order=sequential"])``."""
+    ``compose_config(["data.root=store", "recipe=windows", "bags.order=sequential"])``.
+    Terms in folders named by a ``hydra.searchpath=[file://...]`` override are known too."""
     overrides = list(overrides or [])
     register_terms(search_dirs(overrides))
     GlobalHydra.instance().clear()
-    with initialize_config_dir(config_dir=str(CONF_DIR), version_base="1.3"):
-        return compose(config_name="config", overrides=overrides)
+    try:
+        with initialize_config_dir(config_dir=str(CONF_DIR), version_base="1.3"):
+            return compose(config_name="config", overrides=overrides,
+                           return_hydra_config=return_hydra_config)
+    finally:
+        GlobalHydra.instance().clear()

@@ -5,7 +5,8 @@ from __future__ import annotations
 import os
 import sys
 import traceback
-from typing import Any, Callable
+from collections.abc import Callable
+from typing import Any
 
 
 class WsadError(Exception):

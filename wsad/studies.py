@@ -138,7 +138,8 @@ def order_conclusion(effect: pd.DataFrame) -> str:
 
 
 def effect_markdown(effect: pd.DataFrame) -> str:
-    lines = ["| knob | value | n | sequential | shuffled | shuffled - sequential [95% CI] | p (paired t) | p (Wilcoxon) |",
+    lines = ["| knob | value | n | sequential | shuffled | shuffled - sequential [95% CI] "
+             "| p (paired t) | p (Wilcoxon) |",
              "|---|---|---|---|---|---|---|---|"]
     for _, r in effect.iterrows():
         d = f"{r['diff']:+.3f} [{r.diff_lo:+.3f}, {r.diff_hi:+.3f}]"

@@ -1,8 +1,8 @@
 """Whole-video bags: one bag per video (per view)."""
 from __future__ import annotations
 
-from ..errors import WsadError
 from ..data.batch import Item
+from ..errors import WsadError
 from .base import BagConstruction, balanced_batches, video_items
 
 

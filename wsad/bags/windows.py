@@ -3,8 +3,8 @@ from __future__ import annotations
 
 import numpy as np
 
-from ..errors import WsadError
 from ..data.batch import Item
+from ..errors import WsadError
 from .base import BagConstruction
 
 ORDERS = ("sequential", "shuffled")

@@ -11,8 +11,8 @@ USAGE = ("usage: wsad-synth scenario=NAME out=DIR [key=value ...]\n"
 
 
 def _main(argv: list[str]) -> int:
-    from ..synthetic import generate_store, load_scenario, scenario_names
     from ..store import summarize
+    from ..synthetic import generate_store, load_scenario, scenario_names
 
     if not argv or argv[0] in ("-h", "--help"):
         print(USAGE)

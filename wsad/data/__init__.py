@@ -3,7 +3,7 @@ resampling to chunks, the two batch layouts, and the batching itself.
 
 Nothing here knows about bag constructions, heads or terms; they build on it.
 """
-from .batch import Batch, BagLoader, Item
+from .batch import BagLoader, Batch, Item
 from .cache import ArrayCache
 from .chunks import chunk_bounds, chunk_of_segment, chunks_to_segments, resample_chunks
 from .layout import padded, real_rows, unpack

@@ -1,7 +1,7 @@
 """Prepared arrays kept in RAM up to a byte budget."""
 from __future__ import annotations
 
-from typing import Hashable
+from collections.abc import Hashable
 
 import numpy as np
 

@@ -7,7 +7,7 @@ padding), or padded, [B, T, D].
 """
 from __future__ import annotations
 
-from typing import Iterator
+from collections.abc import Iterator
 
 import torch
 

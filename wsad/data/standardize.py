@@ -23,7 +23,7 @@ class Standardizer:
         self._inv_t = None if std is None else torch.from_numpy(self.inv)
 
     @classmethod
-    def fit(cls, store: FeatureStore, videos: list[str]) -> "Standardizer":
+    def fit(cls, store: FeatureStore, videos: list[str]) -> Standardizer:
         s = ss = None
         n = 0
         for v in videos:
@@ -55,7 +55,7 @@ class Standardizer:
                 "std": None if self.std is None else torch.from_numpy(self.std)}
 
     @classmethod
-    def from_state(cls, state: dict) -> "Standardizer":
+    def from_state(cls, state: dict) -> Standardizer:
         m, s = state.get("mean"), state.get("std")
         return cls(None if m is None else m.numpy(), None if s is None else s.numpy())
 

@@ -5,7 +5,7 @@ packed or padded (see :mod:`wsad.data.layout`), ``mask`` is [B, T].
 """
 from __future__ import annotations
 
-from typing import Sequence
+from collections.abc import Sequence
 
 import numpy as np
 import torch

@@ -1,7 +1,7 @@
 """Gated attention MIL pooling (Ilse, Tomczak & Welling, ICML 2018)."""
 from __future__ import annotations
 
-from typing import Sequence
+from collections.abc import Sequence
 
 import torch
 from torch import nn

@@ -1,7 +1,7 @@
 """A per-segment MLP scorer."""
 from __future__ import annotations
 
-from typing import Sequence
+from collections.abc import Sequence
 
 import torch
 from torch import nn

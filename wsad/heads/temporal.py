@@ -1,7 +1,7 @@
 """A 1-D convolution over the segment axis before the scorer."""
 from __future__ import annotations
 
-from typing import Sequence
+from collections.abc import Sequence
 
 import torch
 from torch import nn

@@ -25,6 +25,7 @@ from ..errors import WsadError
 from ..evaluate.metrics import METRICS
 from .runs import label_keys, label_of, varying_params
 
+
 def t_interval(x, level: float = 0.95) -> tuple[float, float, float, float, int]:
     """(mean, sd, lo, hi, n) with the Student t interval; lo/hi NaN when n < 2."""
     x = np.asarray([v for v in x if v == v], dtype=float)

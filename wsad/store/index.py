@@ -8,8 +8,8 @@ interrupted build leaves nothing half-written under ``out``.
 from __future__ import annotations
 
 import os
-import shutil
 import re
+import shutil
 from pathlib import Path
 
 import numpy as np

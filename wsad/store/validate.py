@@ -12,8 +12,7 @@ from pathlib import Path, PurePosixPath
 import numpy as np
 import pandas as pd
 
-from .format import (DTYPES, EVENT_COLUMNS, FORMAT_VERSION, MANIFEST_COLUMNS, SEGMENT_FRAMES,
-                     SPLITS, expected_segments)
+from .format import DTYPES, EVENT_COLUMNS, FORMAT_VERSION, MANIFEST_COLUMNS, SEGMENT_FRAMES, SPLITS, expected_segments
 
 # Arrays are scanned for NaN/Inf in blocks so that a large store never sits in RAM.
 _SCAN_BLOCK = 1 << 22

@@ -41,7 +41,7 @@ class Signatures:
     busy: np.ndarray
 
     @staticmethod
-    def build(cfg: DictConfig) -> "Signatures":
+    def build(cfg: DictConfig) -> Signatures:
         # Each direction is seeded by its own name, so the order of keys in a recipe (or in
         # the copy kept in store.json) does not matter, and adding a type changes no other.
         d = int(cfg.dim)

@@ -37,7 +37,7 @@ class TermInputs:
 
     @classmethod
     def of(cls, out: HeadOutput, y: torch.Tensor, bag_scores: torch.Tensor | None,
-           pairs: torch.Tensor | None = None) -> "TermInputs":
+           pairs: torch.Tensor | None = None) -> TermInputs:
         return cls(out, out.scores, y, bag_scores, pairs)
 
     @property

@@ -27,7 +27,7 @@ class Progress:
     partial: dict = field(default_factory=dict)
 
     @classmethod
-    def start(cls, s: Setup) -> "Progress":
+    def start(cls, s: Setup) -> Progress:
         return cls(partial=_empty_sums(s.terms))
 
     def add_step(self, loss: float, terms: dict[str, float]) -> None:
@@ -67,7 +67,7 @@ class Progress:
                 "history": self.history, "partial": self.partial}
 
     @classmethod
-    def restore(cls, state: dict, s: Setup) -> "Progress":
+    def restore(cls, state: dict, s: Setup) -> Progress:
         """Put the model, optimiser, schedule and RNGs back where ``state`` left them."""
         s.model.load_state_dict(state["model"])
         s.optimizer.load_state_dict(state["optimizer"])
