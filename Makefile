@@ -6,7 +6,7 @@ TORCH_SPEC ?= torch==2.13.0
 STAMP := $(VENV)/.installed
 DEMO_DIR ?= demo_out
 
-.PHONY: setup test test-slow demo bench bench-quick ui lab clean
+.PHONY: setup lint test test-slow demo bench bench-quick ui lab clean
 
 setup: $(STAMP)
 
@@ -19,7 +19,11 @@ $(STAMP): pyproject.toml
 	$(BIN)/python -m pip install --quiet -e ".[dev]"
 	touch $(STAMP)
 
-test: setup
+# Lint and import order first (ruff, configured in pyproject.toml), then the suite.
+lint: setup
+	$(BIN)/ruff check wsad tests benchmarks scripts
+
+test: lint
 	$(BIN)/python -m pytest -q tests
 
 # The notebooks at their default settings (minutes each; not part of `make test`).

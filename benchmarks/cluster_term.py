@@ -50,9 +50,8 @@ def full_inertia(e: torch.Tensor, assign: torch.Tensor) -> torch.Tensor:
 
 def step_share(root) -> dict:
     from wsad.config import compose_config
-    from wsad.pooling import pool
-    from wsad.terms.base import TermInputs
     from wsad.train import build, seed_everything
+    from wsad.train.step import step
 
     cfg = compose_config([f"data.root={root}", "recipe=topk", "tracking.enabled=false",
                           "objective.cluster_distance=1e-3"])
@@ -60,20 +59,11 @@ def step_share(root) -> dict:
     s = build(cfg)
     batch = s.loader.collate([s.items[i] for i in s.bags.batches(s.items, 1, 0)[0]])
 
-    def step(with_term: bool):
-        out = s.model(batch.x, batch.mask)
-        bag = pool(s.pooling, out, batch.mask, s.k)
-        inp = TermInputs(out.scores, out.logits, batch.mask, batch.y, bag, lambda: out.embeddings, None,
-                         lambda: out.packed_embeddings)
-        loss = sum(w * t(inp) for n, (w, t) in s.terms.items() if with_term or n != "cluster_distance")
-        s.optimizer.zero_grad(set_to_none=True)
-        loss.backward()
-        s.optimizer.step()
-
+    without_term = {n: t for n, t in s.terms.items() if n != "cluster_distance"}
     with_t, without = [], []
     for _ in range(12):  # interleaved, so drifts in machine speed hit both alike
-        with_t.append(best_of(lambda: step(True), 1))
-        without.append(best_of(lambda: step(False), 1))
+        with_t.append(best_of(lambda: step(s.model, s.pooling, s.terms, batch, s.optimizer), 1))
+        without.append(best_of(lambda: step(s.model, s.pooling, without_term, batch, s.optimizer), 1))
     w, wo = min(with_t), min(without)
     return {"step_share": max(0.0, (w - wo) / w), "step_s_with": w, "step_s_without": wo,
             "step_segments": int(batch.mask.sum())}
@@ -82,8 +72,10 @@ def step_share(root) -> dict:
 def run(size: str) -> dict:
     from sklearn.cluster import KMeans
 
-    from wsad.terms.base import TermInputs
-    from wsad.terms.cluster_distance import ClusterDistance, sketched_two_means
+    from wsad.cluster import two_means
+    from wsad.heads import HeadOutput
+    from wsad.terms import TermInputs
+    from wsad.terms.cluster_distance import ClusterDistance
 
     root = store(size)
     b, t, h = SHAPE[size]
@@ -91,7 +83,7 @@ def run(size: str) -> dict:
     mask = torch.ones(b, t, dtype=torch.bool)
     y = (torch.arange(b) % 2).float()
     term = ClusterDistance()
-    inp = TermInputs(None, None, mask, y, None, e, None)
+    inp = TermInputs(HeadOutput(torch.zeros(b, t), e, mask), None, y)
     term(inp)
     ours = best_of(lambda: term(inp), 10)
     arr = e.numpy()  # the same float32 data the term clusters
@@ -102,8 +94,7 @@ def run(size: str) -> dict:
     ref_inertia = np.array(sklearn_all())
     sk = best_of(sklearn_all, 3)
     # the term's own partition (found on the sketch), scored on the full embeddings
-    assign, _ = sketched_two_means(e.reshape(-1, h), mask, term.sketch_dim, term.n_init, term.n_iter,
-                                   term.tol)
+    assign, _ = two_means(e.reshape(-1, h), mask, term.n_init, term.n_iter, term.tol, term.sketch_dim)
     inertia = full_inertia(e, assign.view(b, t))
     return {"cluster_term": {
         "speedup_vs_sklearn": sk / ours, "term_s": ours, "sklearn_s": sk,

@@ -59,8 +59,8 @@ def floor_seconds(chain: list[nn.Linear], segments: int, batches: int, dim: int)
 
 
 def run(size: str, recipes=RECIPES) -> dict:
+    from wsad.checkpoint import build_head
     from wsad.config import compose_config
-    from wsad.model_io import build_head
     from wsad.store import FeatureStore
     from wsad.train import train
 
