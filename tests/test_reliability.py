@@ -129,11 +129,13 @@ def test_train_refuses_a_broken_store_in_one_line(small_store, tmp_path):
     (["head=transformer"], "choose one of: gated_attention, mlp, temporal"),
     (["recipe=nope"], "choose one of: mil_ranking, topk, windows"),
     (["bags=crops"], "choose one of:"),
-    (["objective.foo=1"], "known terms: video_bce"),
+    (["objective.foo=1"], "known terms: bag_bce, cluster_distance"),
     (["objective.sparsity=-1"], "must be >= 0"),
     (["recipe=windows", "bags.size=0"], "must be >= 1"),
     (["recipe=windows", "bags.order=random"], "use one of ['sequential', 'shuffled']"),
-    (["trainer.select=best_test"], "use last or weak_val"),
+    (["trainer.select=best_test"], "use one of ['last', 'weak_val']"),
+    (["pooling=attention"], "needs a head that gives attention"),
+    (["pooling=median"], "choose one of: attention, max, mean, topk"),
     ([], None),
 ])
 def test_bad_configuration_is_one_clear_line(small_store, tmp_path, args, expect):
