@@ -82,3 +82,25 @@ def test_explicit_by_and_baseline(tmp_path):
     tex = paths["tex"].read_text()
     assert r"\toprule" in tex and r"\midrule" in tex and r"\bottomrule" in tex
     assert paths["metric_plot"].exists()
+
+
+def test_a_seed_run_twice_counts_once_and_nan_pairs_are_left_out(tmp_path):
+    # Found by running a sweep again: the report must neither crash nor count a seed twice.
+    runs = _runs()
+    again = runs[(runs["params.ablation.toggle"] == "smoothness") & (runs["params.seed"] == "2")].copy()
+    runs["start_time"] = range(len(runs))
+    again["run_id"], again["start_time"], again["metrics.frame_auc"] = "again", 10 ** 6, 0.123
+    rep = build_report(pd.concat([runs, again], ignore_index=True), metrics=("frame_auc",))
+    t = rep.table.set_index("variant")
+    assert rep.duplicates == 1 and t.loc["ablation.toggle=smoothness", "n"] == 5
+    kept = rep.runs[(rep.runs.variant == "ablation.toggle=smoothness") & (rep.runs.seed == "2")]
+    assert list(kept.run_id) == ["again"]                       # the latest run of the seed
+    write_report(rep, tmp_path, plots=False)
+    assert "repeated a seed" in (tmp_path / "report.md").read_text()
+    # a NaN in one seed's metric drops that pair only (reference: SciPy on the remaining pairs)
+    a = np.array([0.80, 0.78, np.nan, 0.81, 0.79, 0.82])
+    b = np.array([0.77, 0.78, 0.80, 0.76, 0.80, 0.79])
+    r = paired_tests(a, b)
+    keep = ~np.isnan(a)
+    assert r["n_pairs"] == 5
+    assert r["p_t"] == pytest.approx(stats.ttest_rel(a[keep], b[keep]).pvalue, abs=1e-12)

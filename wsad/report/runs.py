@@ -28,7 +28,7 @@ def load_runs(tracking_uri: str, experiment: str, filter_string: str = "") -> pd
     for r in runs:
         if r.info.status != "FINISHED":
             continue
-        row = {"run_id": r.info.run_id, "run_name": r.info.run_name}
+        row = {"run_id": r.info.run_id, "run_name": r.info.run_name, "start_time": r.info.start_time}
         row.update({f"params.{k}": v for k, v in r.data.params.items()})
         row.update({f"metrics.{k}": v for k, v in r.data.metrics.items()})
         rows.append(row)

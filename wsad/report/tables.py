@@ -41,8 +41,12 @@ def t_interval(x, level: float = 0.95) -> tuple[float, float, float, float, int]
 
 
 def paired_tests(a, b) -> dict[str, float]:
-    """Differences a_i - b_i (paired by seed): mean, 95% interval, p-values."""
-    d = np.asarray(a, float) - np.asarray(b, float)
+    """Differences a_i - b_i (paired by seed): mean, 95% interval, p-values.
+    A pair where either side is NaN (a metric a run could not compute) is left out."""
+    a, b = np.asarray(a, float), np.asarray(b, float)
+    keep = ~(np.isnan(a) | np.isnan(b))
+    a, b = a[keep], b[keep]
+    d = a - b
     mean, sd, lo, hi, n = t_interval(d)
     p_t = p_w = math.nan
     if n >= 2 and np.any(d != 0):
@@ -62,6 +66,7 @@ class Report:
     by: list[str]
     baseline: str
     alpha: float
+    duplicates: int = 0        # runs of a (variant, seed) already present, left out (the latest is kept)
 
 
 def build_report(runs: pd.DataFrame, by: list[str] | None = None, baseline: str | None = None,
@@ -81,6 +86,10 @@ def build_report(runs: pd.DataFrame, by: list[str] | None = None, baseline: str 
     shown = label_keys(runs, by)
     runs["variant"] = [label_of({k: r.get(f"params.{k}") for k in shown}) for _, r in runs.iterrows()]
     runs["seed"] = runs.get("params.seed", pd.Series(["0"] * len(runs)))
+    if "start_time" in runs.columns:
+        runs = runs.sort_values("start_time", kind="stable")
+    dup = runs.duplicated(["variant", "seed"], keep="last")  # one seed run twice: keep the latest
+    runs = runs[~dup].reset_index(drop=True)
     variants = list(dict.fromkeys(sorted(runs["variant"], key=_baseline_rank)))
     base = _pick_baseline(variants, baseline)
     variants = [base] + [v for v in variants if v != base]
@@ -102,7 +111,7 @@ def build_report(runs: pd.DataFrame, by: list[str] | None = None, baseline: str 
             rows.append(row)
     if not rows:
         raise WsadError(f"the runs log none of the metrics {list(metrics)}")
-    return Report(pd.DataFrame(rows), runs, by, base, alpha)
+    return Report(pd.DataFrame(rows), runs, by, base, alpha, int(dup.sum()))
 
 
 def _baseline_rank(label: str) -> tuple:
@@ -183,6 +192,9 @@ def write_report(rep: Report, out: Path, tracking_uri: str | None = None,
           f"{n_seeds.min()}–{n_seeds.max()}. Baseline: **{rep.baseline}**.", "",
           f"Intervals are 95% Student t over seeds; Δ is paired by seed. Bold: paired t-test "
           f"p < {rep.alpha}. With n seeds the Wilcoxon signed-rank p cannot fall below 2/2^n.", ""]
+    if rep.duplicates:
+        md[3:3] = [f"{rep.duplicates} run(s) repeated a seed of their variant and were left out "
+                   "(the latest run of each seed is kept).", ""]
     for m in metrics:
         md += [f"## {m}", "", markdown_table(rep, m), ""]
     paths["md"] = out / "report.md"
