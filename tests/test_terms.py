@@ -355,3 +355,19 @@ def test_functional_forms_are_what_the_terms_compute():
     assert Sparsity(per_segment=True)(inp) == sparsity(inp.scores, inp.mask, anom, True)
     assert VideoBCE()(inp) == video_bce(inp.logits, inp.mask, inp.y)
     assert BagBCE()(inp) == bag_bce(inp.bag_scores, inp.y)
+
+
+def test_bag_bce_keeps_the_gradient_of_a_confidently_wrong_bag():
+    # Reference: torch.nn.functional.binary_cross_entropy on sigmoid(logit) (PyTorch's own loss):
+    # an anomalous bag at logit -14 (S = 8.3e-7) and a normal bag at 0. d L / d logit of the
+    # anomalous bag is (S - 1) / B = -0.5, not the 0 a clamp at 1e-6 would give.
+    logits = torch.tensor([[-14.0], [0.0]], requires_grad=True)
+    mask = torch.ones(2, 1, dtype=torch.bool)
+    y = torch.tensor([1.0, 0.0])
+    out = HeadOutput(logits, torch.zeros(2, 1, 1), mask)
+    inp = TermInputs.of(out, y, MaxPooling()(out, mask))
+    BagBCE()(inp).backward()
+    ref_logits = logits.detach().clone().requires_grad_(True)
+    F.binary_cross_entropy(torch.sigmoid(ref_logits)[:, 0], y).backward()
+    torch.testing.assert_close(logits.grad, ref_logits.grad)
+    assert logits.grad[0, 0].item() == pytest.approx(-0.5, abs=1e-5)

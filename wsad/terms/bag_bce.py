@@ -6,15 +6,18 @@ import torch.nn.functional as F
 
 from .base import Term, TermInputs
 
-EPS = 1e-6
-
 
 def bag_bce(bag_scores: torch.Tensor, y: torch.Tensor) -> torch.Tensor:
-    """L = -(1/B) sum_b [ y_b log S_b + (1 - y_b) log(1 - S_b) ], S clamped to [1e-6, 1 - 1e-6].
+    """L = -(1/B) sum_b [ y_b log S_b + (1 - y_b) log(1 - S_b) ].
 
-    Shape: bag_scores [B] in (0, 1), y [B] -> scalar.
+    PyTorch's own ``binary_cross_entropy``, with no clamp of S in front of it: a
+    clamp would cut the gradient of a confidently wrong bag (S below the clamp on an
+    anomalous bag) to zero, exactly where it is needed most; PyTorch bounds the
+    log terms at -100 itself.
+
+    Shape: bag_scores [B] in [0, 1], y [B] -> scalar.
     """
-    return F.binary_cross_entropy(bag_scores.clamp(EPS, 1 - EPS), y)
+    return F.binary_cross_entropy(bag_scores, y)
 
 
 class BagBCE(Term):
