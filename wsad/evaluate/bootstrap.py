@@ -1,15 +1,69 @@
-"""Grouped bootstrap intervals for frame AUC and AP.
+"""Intervals for frame AUC and AP that treat a video, or a camera, as the unit.
 
-:func:`grouped_bootstrap` resamples test *videos* (frames of one video are not
-independent) and gives percentile intervals for frame AUC and AP.
+Frames of one video are not independent, and videos of one camera share its
+background: an interval must resample (or sum over) whole clusters. ``by``
+chooses the cluster: ``video`` or ``group`` (the camera). :func:`grouped_bootstrap`
+gives the AUC interval from the clustered variance of Obuchowski (1997) with
+Student t quantiles on (clusters - 1) degrees of freedom by default (its
+coverage is measured by :mod:`wsad.evaluate.coverage`), or the percentile
+bootstrap over clusters; the AP interval is the percentile bootstrap over clusters.
 """
 from __future__ import annotations
 
 import numpy as np
-from scipy import sparse
+from scipy import sparse, stats
 
 from ..errors import WsadError
 from .metrics import VideoScores, average_precision, roc_auc
+
+UNITS = ("video", "group")
+INTERVALS = ("clustered", "percentile")
+
+
+def cluster_ids(videos: list[VideoScores], by: str) -> np.ndarray:
+    """Cluster index of each video: itself (``video``) or its camera (``group``)."""
+    if by not in UNITS:
+        raise WsadError(f"bootstrap unit {by!r}; use one of {list(UNITS)}")
+    keys = [v.video if by == "video" else v.group for v in videos]
+    return np.unique(keys, return_inverse=True)[1].astype(np.int64)
+
+
+def clustered_auc(videos: list[VideoScores], by: str = "video") -> tuple[float, float, int]:
+    """Frame AUC and its standard error for clustered data (Obuchowski 1997,
+    Biometrics 53: "Nonparametric analysis of clustered ROC curve data").
+
+    With M positive and N negative frames in I clusters, V10(x) = the share of
+    negatives below the positive x (ties 1/2), V01(y) = the share of positives
+    above the negative y, and V10_i, V01_i their sums over cluster i (m_i, n_i
+    positives and negatives in it):
+    S10 = I / ((I-1) M) sum_i (V10_i - m_i A)^2, S01 = I / ((I-1) N) sum_i (V01_i - n_i A)^2,
+    S11 = I / (I-1) sum_i (V10_i - m_i A)(V01_i - n_i A),
+    var(A) = S10 / M + S01 / N + 2 S11 / (M N).
+    With one frame per cluster it is DeLong's variance (DeLong et al. 1988) up to
+    the I/(I-1) factors.
+
+    Returns:
+        (AUC, standard error, number of clusters I).
+    """
+    have = [v for v in videos if v.frame_labels is not None]
+    if not have:
+        raise WsadError("no test video has frame-level ground truth; intervals need events")
+    ids = cluster_ids(have, by)
+    s = np.concatenate([v.frame_scores() for v in have]).astype(np.float64)
+    y = np.concatenate([v.frame_labels for v in have]).astype(bool)
+    c = np.concatenate([np.full(v.frames, i) for v, i in zip(have, ids)])
+    m, n, k = int(y.sum()), int((~y).sum()), int(ids.max()) + 1
+    if m == 0 or n == 0 or k < 2:
+        return float("nan"), float("nan"), k
+    sp, sn = np.sort(s[y]), np.sort(s[~y])
+    v10 = (np.searchsorted(sn, s[y], "left") + np.searchsorted(sn, s[y], "right")) / (2.0 * n)
+    v01 = (2 * m - np.searchsorted(sp, s[~y], "right") - np.searchsorted(sp, s[~y], "left")) / (2.0 * m)
+    auc = float(v10.mean())
+    d10 = np.bincount(c[y], v10, k) - np.bincount(c[y], minlength=k) * auc
+    d01 = np.bincount(c[~y], v01, k) - np.bincount(c[~y], minlength=k) * auc
+    f = k / (k - 1)
+    var = f * ((d10 ** 2).sum() / m ** 2 + (d01 ** 2).sum() / n ** 2 + 2 * (d10 * d01).sum() / (m * n))
+    return auc, float(np.sqrt(max(var, 0.0))), k
 
 
 def bootstrap_indices(n_videos: int, n_resamples: int, seed: int) -> np.ndarray:
@@ -66,24 +120,26 @@ def _auc_ap_from_counts(pos: np.ndarray, neg: np.ndarray) -> tuple[np.ndarray, n
 
 
 def grouped_bootstrap_values(videos: list[VideoScores], n_resamples: int = 1000, seed: int = 0,
-                             batch: int = 64) -> tuple[np.ndarray, np.ndarray]:
-    """Frame AUC and AP of each resample of the test videos (NaN where a
-    resample holds a single class).
+                             batch: int = 64, by: str = "video") -> tuple[np.ndarray, np.ndarray]:
+    """Frame AUC and AP of each resample of the test videos' clusters (NaN where
+    a resample holds a single class); ``by="group"`` draws cameras, each with
+    all its videos.
 
-    A resample that draws video i k times counts its frames k times, so each
+    A resample that draws a cluster k times counts its frames k times, so each
     resample is a weighted AUC/AP computed from the per-video count tables in
     one sparse product: no loop over frames.
     """
     have, pos_t, neg_t = _tables(videos)
     if not have:
         raise WsadError("no test video has frame-level ground truth; bootstrap needs events")
-    idx = bootstrap_indices(len(have), n_resamples, seed)
+    ids = cluster_ids(have, by)
+    idx = bootstrap_indices(int(ids.max()) + 1, n_resamples, seed)
     aucs, aps = [], []
     for s in range(0, n_resamples, batch):
         rows = idx[s:s + batch]
-        w = np.zeros((len(rows), len(have)))
-        np.add.at(w, (np.repeat(np.arange(len(rows)), rows.shape[1]), rows.ravel()), 1.0)
-        w = sparse.csr_matrix(w)
+        wc = np.zeros((len(rows), int(ids.max()) + 1))
+        np.add.at(wc, (np.repeat(np.arange(len(rows)), rows.shape[1]), rows.ravel()), 1.0)
+        w = sparse.csr_matrix(wc[:, ids])
         a, p = _auc_ap_from_counts((w @ pos_t).toarray(), (w @ neg_t).toarray())
         aucs.append(a)
         aps.append(p)
@@ -91,32 +147,52 @@ def grouped_bootstrap_values(videos: list[VideoScores], n_resamples: int = 1000,
 
 
 def grouped_bootstrap(videos: list[VideoScores], n_resamples: int = 1000, seed: int = 0,
-                      level: float = 0.95) -> dict[str, float]:
-    """Percentile intervals for frame AUC and AP over resampled test videos.
+                      level: float = 0.95, by: str = "video", interval: str = "clustered") -> dict[str, float]:
+    """Intervals for frame AUC and AP with the video (``by="video"``) or the camera
+    (``by="group"``) as the unit.
 
-    Returns ``frame_auc_lo/hi``, ``frame_ap_lo/hi`` and ``bootstrap_kept``
-    (resamples holding both classes; the others are dropped).
+    ``interval="clustered"``: AUC +- t_{(1+level)/2, I-1} se, with se from
+    :func:`clustered_auc` over I clusters (clipped to [0, 1]); ``"percentile"``:
+    the percentile interval of the AUC over ``n_resamples`` cluster resamples.
+    AP always takes the percentile interval over the resamples.
+
+    Returns:
+        ``frame_auc_lo/hi``, ``frame_ap_lo/hi``, ``frame_auc_se`` (clustered only),
+        ``interval_clusters`` (I) and ``bootstrap_kept`` (resamples holding both
+        classes; the others are dropped).
     """
-    auc, ap = grouped_bootstrap_values(videos, n_resamples, seed)
+    if interval not in INTERVALS:
+        raise WsadError(f"interval {interval!r}; use one of {list(INTERVALS)}")
+    auc, ap = grouped_bootstrap_values(videos, n_resamples, seed, by=by)
     keep = ~np.isnan(auc)
     q = [(1 - level) / 2 * 100, (1 + level) / 2 * 100]
     lo_a, hi_a = np.percentile(auc[keep], q)
     lo_p, hi_p = np.percentile(ap[keep], q)
-    return {"frame_auc_lo": float(lo_a), "frame_auc_hi": float(hi_a),
-            "frame_ap_lo": float(lo_p), "frame_ap_hi": float(hi_p),
-            "bootstrap_kept": int(keep.sum())}
+    out = {"frame_ap_lo": float(lo_p), "frame_ap_hi": float(hi_p), "bootstrap_kept": int(keep.sum())}
+    a, se, k = clustered_auc(videos, by)
+    out["interval_clusters"] = k
+    if interval == "clustered":
+        half = float(stats.t.ppf((1 + level) / 2, k - 1)) * se
+        lo_a, hi_a = max(0.0, a - half), min(1.0, a + half)
+        out["frame_auc_se"] = se
+    out.update({"frame_auc_lo": float(lo_a), "frame_auc_hi": float(hi_a)})
+    return out
 
 
-def bootstrap_naive(videos: list[VideoScores], n_resamples: int, seed: int) -> tuple[np.ndarray, np.ndarray]:
-    """The plain definition (concatenate the drawn videos, score them): a
-    reference for :func:`grouped_bootstrap_values`, far slower."""
+def bootstrap_naive(videos: list[VideoScores], n_resamples: int, seed: int,
+                    by: str = "video") -> tuple[np.ndarray, np.ndarray]:
+    """The plain definition (concatenate the videos of the drawn clusters, score
+    them): a reference for :func:`grouped_bootstrap_values`, far slower."""
     have = [v for v in videos if v.frame_labels is not None]
-    idx = bootstrap_indices(len(have), n_resamples, seed)
+    ids = cluster_ids(have, by)
+    members = [np.flatnonzero(ids == c) for c in range(int(ids.max()) + 1)]
+    idx = bootstrap_indices(len(members), n_resamples, seed)
     fs = [v.frame_scores() for v in have]
     auc, ap = np.full(n_resamples, np.nan), np.full(n_resamples, np.nan)
     for r, rows in enumerate(idx):
-        y = np.concatenate([have[i].frame_labels for i in rows])
-        s = np.concatenate([fs[i] for i in rows])
+        drawn = [i for c in rows for i in members[c]]
+        y = np.concatenate([have[i].frame_labels for i in drawn])
+        s = np.concatenate([fs[i] for i in drawn])
         if 0 < y.sum() < len(y):
             auc[r], ap[r] = roc_auc(y, s), average_precision(y, s)
     return auc, ap

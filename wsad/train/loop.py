@@ -122,7 +122,8 @@ def _finish(cfg, s: Setup, prog: Progress, run) -> RunResult:
     test = video_scores(s.store, score_videos(s.model, s.store, s.test_videos, s.std, s.bags.chunks))
     final = quiet_metrics(test)
     if int(cfg.trainer.bootstrap) > 0 and "frame_auc" in final:
-        final.update(grouped_bootstrap(test, int(cfg.trainer.bootstrap), seed=int(cfg.seed)))
+        final.update(grouped_bootstrap(test, int(cfg.trainer.bootstrap), seed=int(cfg.seed),
+                                       by=cfg.trainer.bootstrap_by, interval=cfg.trainer.get("interval", "clustered")))
     final["selected_epoch"] = prog.best_epoch
     selected = prog.history[prog.best_epoch - 1]
     if "weak_val_video_auc" in selected:

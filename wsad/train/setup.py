@@ -10,7 +10,7 @@ from pathlib import Path
 
 import numpy as np
 import torch
-from omegaconf import DictConfig
+from omegaconf import DictConfig, open_dict
 
 from ..bags.base import BagConstruction
 from ..checkpoint import build_head
@@ -25,6 +25,8 @@ from ..terms.base import Term
 
 SELECTIONS = ("last", "weak_val")
 SCHEDULES = (None, "cosine")
+#: Cameras in the test split from which intervals resample cameras rather than videos by default.
+MIN_GROUPS_FOR_GROUP_UNIT = 10
 
 
 def seed_everything(seed: int, threads: int | None) -> None:
@@ -138,6 +140,7 @@ def build(cfg: DictConfig) -> Setup:
     fit_videos, val_videos = weak_validation_split(store, float(cfg.trainer.weak_val_share))
     if cfg.trainer.select == "weak_val" and not val_videos:
         raise WsadError("trainer.select=weak_val needs trainer.weak_val_share > 0")
+    resolve_interval_unit(cfg, store)
     std = Standardizer.fit(store, fit_videos) if cfg.data.standardize else Standardizer()
     model = build_head(cfg, store.dim)
     pooling.check(model)
@@ -149,6 +152,25 @@ def build(cfg: DictConfig) -> Setup:
     loader = BagLoader(store, bags, std, ArrayCache(float(cfg.data.cache_mb)))
     return Setup(store, fit_videos, val_videos, store.videos("test"), std, bags, pooling,
                  bags.items(store, fit_videos), loader, model, terms, optimizer, schedule, epochs, out_dir)
+
+
+def resolve_interval_unit(cfg: DictConfig, store: FeatureStore) -> None:
+    """``trainer.bootstrap_by``: the unit intervals treat as independent. Unset, it is
+    the camera when the test split has at least 10 of them (fewer clusters give
+    intervals too narrow to trust), else the video; the chosen value is what the
+    run logs as its param."""
+    from ..evaluate.bootstrap import INTERVALS, UNITS
+
+    by = cfg.trainer.get("bootstrap_by")
+    if by is None:
+        groups = store.manifest.loc[store.manifest["split"] == "test", "group"].nunique()
+        by = "group" if groups >= MIN_GROUPS_FOR_GROUP_UNIT else "video"
+    if by not in UNITS:
+        raise WsadError(f"trainer.bootstrap_by={by!r}; use one of {list(UNITS)} or null")
+    if cfg.trainer.get("interval", "clustered") not in INTERVALS:
+        raise WsadError(f"trainer.interval={cfg.trainer.interval!r}; use one of {list(INTERVALS)}")
+    with open_dict(cfg):
+        cfg.trainer.bootstrap_by = by
 
 
 def in_multirun() -> bool:
