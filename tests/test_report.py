@@ -22,18 +22,62 @@ def test_t_interval_matches_scipy():
     assert math.isnan(t_interval([0.5])[2])
 
 
-def test_paired_tests_match_scipy():
-    # Reference: scipy.stats.wilcoxon and scipy.stats.ttest_rel on the same pairs.
+def _exact_wilcoxon(d) -> float:
+    # The exact two-sided signed-rank p by enumeration (Wilcoxon 1945): under the null every
+    # one of the 2^n sign patterns of the ranks of |d| is equally likely;
+    # p = min(1, 2 min(P(W+ <= w), P(W+ >= w))).
+    import itertools
+
+    ranks = stats.rankdata(np.abs(d))
+    w = ranks[d > 0].sum()
+    null = np.array([sum(r for r, s in zip(ranks, signs) if s) for signs in itertools.product([0, 1], repeat=len(d))])
+    return min(1.0, 2 * min((null <= w).mean(), (null >= w).mean()))
+
+
+def test_paired_tests_match_hand_computations():
+    # References: the paired t statistic written out, t = mean(d) / (sd(d) / sqrt(n)) with
+    # p = 2 P(T_{n-1} > |t|), and the exact signed-rank p by enumeration of the sign flips.
     a = np.array([0.80, 0.78, 0.83, 0.81, 0.79, 0.82, 0.84])
-    b = np.array([0.77, 0.78, 0.80, 0.76, 0.80, 0.79, 0.80])
+    b = np.array([0.77, 0.785, 0.80, 0.76, 0.80, 0.79, 0.80])
+    d = a - b
     r = paired_tests(a, b)
-    assert r["p_wilcoxon"] == pytest.approx(stats.wilcoxon(a, b).pvalue, abs=1e-12)
-    assert r["p_t"] == pytest.approx(stats.ttest_rel(a, b).pvalue, abs=1e-12)
-    lo, hi = stats.t.interval(0.95, 6, loc=np.mean(a - b), scale=stats.sem(a - b))
-    assert (r["diff_lo"], r["diff_hi"]) == pytest.approx((lo, hi), abs=1e-12)
-    assert r["diff"] == pytest.approx(np.mean(a - b))
-    # three seeds: the exact two-sided Wilcoxon p can never go below 2 / 2^3 = 0.25
-    assert paired_tests([0.9, 0.91, 0.92], [0.5, 0.5, 0.5])["p_wilcoxon"] == pytest.approx(0.25)
+    t = d.mean() / (d.std(ddof=1) / np.sqrt(len(d)))
+    assert r["p_t"] == pytest.approx(2 * stats.t.sf(abs(t), len(d) - 1), abs=1e-12)
+    assert r["p_wilcoxon"] == pytest.approx(_exact_wilcoxon(d), abs=1e-12)
+    half = stats.t.ppf(0.975, len(d) - 1) * d.std(ddof=1) / np.sqrt(len(d))
+    assert (r["diff_lo"], r["diff_hi"]) == pytest.approx((d.mean() - half, d.mean() + half), abs=1e-12)
+    assert r["diff"] == pytest.approx(d.mean()) and r["diff_sd"] == pytest.approx(d.std(ddof=1))
+    # three seeds all one way: the exact two-sided p is 2 / 2^3 = 0.25, its floor (only the two
+    # all-same-sign patterns of 2^n are as extreme; Wilcoxon 1945)
+    d3 = np.array([0.4, 0.41, 0.42])
+    assert paired_tests(d3 + 0.5, np.full(3, 0.5))["p_wilcoxon"] == pytest.approx(_exact_wilcoxon(d3)) == 0.25
+
+
+def test_holm_matches_statsmodels():
+    # Reference: statsmodels.stats.multitest.multipletests(method="holm") (Holm 1979).
+    from statsmodels.stats.multitest import multipletests
+
+    from wsad.report.stats import holm
+
+    p = [0.01, 0.04, 0.03, 0.005, 0.2, 0.5]
+    np.testing.assert_allclose(holm(p), multipletests(p, method="holm")[1], atol=1e-12)
+    got = holm([0.02, float("nan"), 0.01])
+    assert math.isnan(got[1]) and got[0] == pytest.approx(0.02) and got[2] == pytest.approx(0.02)
+
+
+@pytest.mark.parametrize("diff,sd", [(0.01, 0.012), (0.02, 0.01), (0.005, 0.02), (0.03, 0.01)])
+def test_seed_plan_matches_statsmodels(diff, sd):
+    # Reference: statsmodels.stats.power.TTestPower (one-sample / paired t, two-sided).
+    from statsmodels.stats.power import TTestPower
+
+    from wsad.report.planning import paired_power, seeds_needed
+
+    ref = TTestPower().solve_power(effect_size=diff / sd, alpha=0.05, power=0.8, alternative="two-sided")
+    n = seeds_needed(diff, sd)
+    assert abs(n - math.ceil(ref)) <= 1, (n, ref)
+    assert paired_power(n, diff / sd) >= 0.8 > paired_power(n - 1, diff / sd) if n > 2 else True
+    assert paired_power(9, diff / sd) == pytest.approx(
+        TTestPower().power(effect_size=diff / sd, nobs=9, alpha=0.05, alternative="two-sided"), abs=1e-6)
 
 
 def _runs(seed_effect=None):
@@ -95,8 +139,16 @@ def test_a_seed_run_twice_counts_once_and_nan_pairs_are_left_out(tmp_path):
     assert rep.duplicates == 1 and t.loc["ablation.toggle=smoothness", "n"] == 5
     kept = rep.runs[(rep.runs.variant == "ablation.toggle=smoothness") & (rep.runs.seed == "2")]
     assert list(kept.run_id) == ["again"]                       # the latest run of the seed
-    write_report(rep, tmp_path, plots=False)
-    assert "repeated a seed" in (tmp_path / "report.md").read_text()
+    runs_nan = pd.concat([runs, again], ignore_index=True)
+    runs_nan.loc[runs_nan.run_id == "sparsity3", "metrics.frame_auc"] = np.nan
+    rep = build_report(runs_nan, metrics=("frame_auc",))
+    t = rep.table.set_index("variant")
+    assert t.loc["ablation.toggle=sparsity", "n"] == 4 and t.loc["ablation.toggle=sparsity", "n_pairs"] == 4
+    assert t["p_t"].drop("ablation.toggle=none").notna().all() and "p_holm" in t.columns
+    paths = write_report(rep, tmp_path, plots=False, plan=0.01)
+    text = (tmp_path / "report.md").read_text()
+    assert "repeated a seed" in text and "p (Holm)" in text and "Seed plan" in text
+    assert set(pd.read_csv(paths["plan"]).variant) == {"ablation.toggle=smoothness", "ablation.toggle=sparsity"}
     # a NaN in one seed's metric drops that pair only (reference: SciPy on the remaining pairs)
     a = np.array([0.80, 0.78, np.nan, 0.81, 0.79, 0.82])
     b = np.array([0.77, 0.78, 0.80, 0.76, 0.80, 0.79])

@@ -19,7 +19,7 @@ class Windows(BagConstruction):
     ``order``: ``sequential`` takes windows in manifest order, then time (so
     consecutive updates see one camera's correlated stream); ``shuffled``
     draws a new random order over all windows of all videos every epoch, the
-    published way to break that correlation. Either way every window is
+    remedy used in the field to break that correlation. Either way every window is
     visited exactly once per epoch.
     """
 

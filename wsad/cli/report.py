@@ -24,13 +24,21 @@ def _main(argv: list[str]) -> int:
     ap.add_argument("--alpha", type=float, default=0.05)
     ap.add_argument("--out", required=True, help="folder for report.md/.csv/.tex and plots")
     ap.add_argument("--no-plots", action="store_true")
+    ap.add_argument("--plan", type=float, default=None, metavar="D",
+                    help="seeds needed to detect a difference D in --metric (power 0.8, alpha 0.05), "
+                         "from the paired spread these runs show")
     args = ap.parse_args(argv)
     uri = resolve_uri(args.tracking_uri)
     runs = load_runs(uri, args.experiment, args.filter)
     by = [b.strip() for b in args.by.split(",")] if args.by else None
     rep = build_report(runs, by=by, baseline=args.baseline, metrics=METRICS, alpha=args.alpha)
-    paths = write_report(rep, args.out, uri, headline=args.metric, plots=not args.no_plots)
+    paths = write_report(rep, args.out, uri, headline=args.metric, plots=not args.no_plots, plan=args.plan)
     print(markdown_table(rep, args.metric))
+    if args.plan is not None:
+        from ..report.planning import plan_markdown, plan_table
+
+        print()
+        print(plan_markdown(plan_table(rep.table, rep.baseline, args.plan), args.metric))
     print()
     for k, p in paths.items():
         print(f"  {k:<16} {p}")

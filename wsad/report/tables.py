@@ -12,51 +12,15 @@ n=5), so it only becomes informative from about 6 seeds on.
 """
 from __future__ import annotations
 
-import math
-import warnings
 from dataclasses import dataclass
 from pathlib import Path
 
-import numpy as np
 import pandas as pd
-from scipy import stats
 
 from ..errors import WsadError
 from ..evaluate.metrics import METRICS
 from .runs import label_keys, label_of, varying_params
-
-
-def t_interval(x, level: float = 0.95) -> tuple[float, float, float, float, int]:
-    """(mean, sd, lo, hi, n) with the Student t interval; lo/hi NaN when n < 2."""
-    x = np.asarray([v for v in x if v == v], dtype=float)
-    n = len(x)
-    if n == 0:
-        return (math.nan,) * 4 + (0,)
-    mean = float(x.mean())
-    if n < 2:
-        return mean, math.nan, math.nan, math.nan, n
-    sd = float(x.std(ddof=1))
-    half = float(stats.t.ppf((1 + level) / 2, n - 1)) * sd / math.sqrt(n)
-    return mean, sd, mean - half, mean + half, n
-
-
-def paired_tests(a, b) -> dict[str, float]:
-    """Differences a_i - b_i (paired by seed): mean, 95% interval, p-values.
-    A pair where either side is NaN (a metric a run could not compute) is left out."""
-    a, b = np.asarray(a, float), np.asarray(b, float)
-    keep = ~(np.isnan(a) | np.isnan(b))
-    a, b = a[keep], b[keep]
-    d = a - b
-    mean, sd, lo, hi, n = t_interval(d)
-    p_t = p_w = math.nan
-    if n >= 2 and np.any(d != 0):
-        with warnings.catch_warnings():
-            warnings.simplefilter("ignore")
-            p_t = float(stats.ttest_rel(a, b).pvalue) if sd > 0 else 0.0
-            p_w = float(stats.wilcoxon(a, b).pvalue)
-    elif n >= 2:
-        p_t = p_w = 1.0
-    return {"diff": mean, "diff_lo": lo, "diff_hi": hi, "n_pairs": n, "p_t": p_t, "p_wilcoxon": p_w}
+from .stats import holm, paired_tests, t_interval
 
 
 @dataclass
@@ -107,8 +71,11 @@ def build_report(runs: pd.DataFrame, by: list[str] | None = None, baseline: str 
                 mine = sub.set_index("seed")[col]
                 common = sorted(set(mine.index) & set(base_runs.index))
                 row.update(paired_tests(mine.loc[common].to_numpy(), base_runs.loc[common].to_numpy()))
-                row["significant"] = bool(row["p_t"] == row["p_t"] and row["p_t"] < alpha)
             rows.append(row)
+        tested = [r for r in rows if r["metric"] == metric and r["variant"] != base]
+        for r, p in zip(tested, holm([r["p_t"] for r in tested])):
+            r["p_holm"] = p
+            r["significant"] = bool(p == p and p < alpha)
     if not rows:
         raise WsadError(f"the runs log none of the metrics {list(metrics)}")
     return Report(pd.DataFrame(rows), runs, by, base, alpha, int(dup.sum()))
@@ -143,19 +110,19 @@ def _p(x: float) -> str:
 
 def markdown_table(rep: Report, metric: str) -> str:
     t = rep.table[rep.table.metric == metric]
-    lines = [f"| variant | n | {metric} mean ± sd | 95% CI | Δ vs baseline [95% CI] | p (paired t) | p (Wilcoxon) |",
-             "|---|---|---|---|---|---|---|"]
+    lines = [f"| variant | n | {metric} mean ± sd | 95% CI | Δ vs baseline [95% CI] | p (paired t) "
+             "| p (Holm) | p (Wilcoxon) |", "|---|---|---|---|---|---|---|---|"]
     for _, r in t.iterrows():
         cell = f"{_fmt(r['mean'])} ± {_fmt(r['sd'])}"
         ci = f"[{_fmt(r['lo'])}, {_fmt(r['hi'])}]"
         if r["variant"] == rep.baseline:
-            diff, pt, pw = "baseline", "", ""
+            diff, pt, ph, pw = "baseline", "", "", ""
         else:
             diff = f"{r['diff']:+.3f} [{_fmt(r['diff_lo'])}, {_fmt(r['diff_hi'])}]"
-            pt, pw = _p(r["p_t"]), _p(r["p_wilcoxon"])
+            pt, ph, pw = _p(r["p_t"]), _p(r["p_holm"]), _p(r["p_wilcoxon"])
             if r.get("significant"):
-                diff, pt = f"**{diff}**", f"**{pt}**"
-        lines.append(f"| {r['variant']} | {r['n']} | {cell} | {ci} | {diff} | {pt} | {pw} |")
+                diff, ph = f"**{diff}**", f"**{ph}**"
+        lines.append(f"| {r['variant']} | {r['n']} | {cell} | {ci} | {diff} | {pt} | {ph} | {pw} |")
     return "\n".join(lines)
 
 
@@ -163,14 +130,14 @@ def latex_table(rep: Report, metric: str) -> str:
     t = rep.table[rep.table.metric == metric]
     esc = lambda s: str(s).replace("_", r"\_").replace("%", r"\%").replace("&", r"\&")  # noqa: E731
     out = [r"\begin{tabular}{lrlll}", r"\toprule",
-           rf"Variant & $n$ & {esc(metric)} (mean $\pm$ sd) & $\Delta$ vs baseline [95\% CI] & $p$ \\",
+           rf"Variant & $n$ & {esc(metric)} (mean $\pm$ sd) & $\Delta$ vs baseline [95\% CI] & $p$ (Holm) \\",
            r"\midrule"]
     for _, r in t.iterrows():
         if r["variant"] == rep.baseline:
             diff, p = "baseline", ""
         else:
             diff = f"${r['diff']:+.3f}$ [{_fmt(r['diff_lo'])}, {_fmt(r['diff_hi'])}]"
-            p = _p(r["p_t"])
+            p = _p(r["p_holm"])
             if r.get("significant"):
                 diff, p = rf"\textbf{{{diff}}}", rf"\textbf{{{p}}}"
         out.append(rf"{esc(r['variant'])} & {r['n']} & ${_fmt(r['mean'])} \pm {_fmt(r['sd'])}$ & {diff} & {p} \\")
@@ -179,8 +146,9 @@ def latex_table(rep: Report, metric: str) -> str:
 
 
 def write_report(rep: Report, out: Path, tracking_uri: str | None = None,
-                 headline: str = "frame_auc", plots: bool = True) -> dict[str, Path]:
-    """report.md, report.csv, report.tex and (with a tracking URI) the plots."""
+                 headline: str = "frame_auc", plots: bool = True, plan: float | None = None) -> dict[str, Path]:
+    """report.md, report.csv, report.tex, with ``plan`` a seed plan for a difference of
+    that size in the headline metric (plan.csv), and (with a tracking URI) the plots."""
     out = Path(out)
     out.mkdir(parents=True, exist_ok=True)
     paths = {}
@@ -190,13 +158,22 @@ def write_report(rep: Report, out: Path, tracking_uri: str | None = None,
           f"{len(rep.runs)} finished runs, {rep.runs.variant.nunique()} variants "
           f"(grouped by {', '.join(rep.by) or 'nothing'}), seeds per variant "
           f"{n_seeds.min()}–{n_seeds.max()}. Baseline: **{rep.baseline}**.", "",
-          f"Intervals are 95% Student t over seeds; Δ is paired by seed. Bold: paired t-test "
-          f"p < {rep.alpha}. With n seeds the Wilcoxon signed-rank p cannot fall below 2/2^n.", ""]
+          f"Intervals are 95% Student t over seeds; Δ is paired by seed. p (Holm): the paired t-test "
+          f"p adjusted for the {max(rep.runs.variant.nunique() - 1, 0)} comparisons of each table "
+          f"(Holm 1979); bold: adjusted p < {rep.alpha}. With n seeds the exact Wilcoxon signed-rank p "
+          "cannot fall below 2/2^n (all n signs alike).", ""]
     if rep.duplicates:
         md[3:3] = [f"{rep.duplicates} run(s) repeated a seed of their variant and were left out "
                    "(the latest run of each seed is kept).", ""]
     for m in metrics:
         md += [f"## {m}", "", markdown_table(rep, m), ""]
+    if plan is not None:
+        from .planning import plan_markdown, plan_table
+
+        table = plan_table(rep.table, rep.baseline, plan)
+        paths["plan"] = out / "plan.csv"
+        table.to_csv(paths["plan"], index=False)
+        md += ["## Seed plan", "", plan_markdown(table, headline), ""]
     paths["md"] = out / "report.md"
     paths["md"].write_text("\n".join(md))
     paths["csv"] = out / "report.csv"
