@@ -240,13 +240,10 @@ def test_batched_two_means_equals_one_bag_at_a_time():
         assert one_inertia.item() == pytest.approx(inertia[i].item())
 
 
-def test_sketched_two_means_near_sklearn_on_digits():
-    # Reference: sklearn.cluster.KMeans(n_clusters=2, n_init=10) on embeddings of
-    # scikit-learn's bundled digits (real data) by random ReLU layers 64 -> 256, as an
-    # untrained head's first layer gives, in bags of 150 images. Over six such layers, the
-    # partitions found on a 16-d count sketch with 4 inits cost on average at most 4% more
-    # inertia than scikit-learn's best of 10 (measured 3.5%, from 2.2% to 5.1% per layer;
-    # the same sketch without its signs measured 4.9%, the first 16 units alone 4.6%).
+def _digits_excess(width: int, **kw) -> list[float]:
+    """Excess inertia over scikit-learn's best-of-10 KMeans of our k = 2 partitions of
+    scikit-learn's bundled digits (real data) embedded by six random ReLU layers 64 -> width,
+    as an untrained head's first layer gives, in bags of 150 images."""
     from sklearn.datasets import load_digits
 
     pixels = torch.from_numpy(load_digits().data.astype(np.float32)[:1500])
@@ -254,9 +251,9 @@ def test_sketched_two_means_near_sklearn_on_digits():
     excess = []
     for seed in range(6):
         g = torch.Generator().manual_seed(seed)
-        x = torch.relu(pixels @ torch.randn(64, 256, generator=g) / 8).numpy()
+        x = torch.relu(pixels @ torch.randn(64, width, generator=g) / 8).numpy()
         torch.manual_seed(0)
-        assign, _ = two_means(torch.from_numpy(x), mask, n_init=4, n_iter=50, tol=1e-4, sketch_dim=16)
+        assign, _ = two_means(torch.from_numpy(x), mask, **kw)
         assign = assign.view(10, 150).numpy()
         ours = refs = 0.0
         for i in range(10):
@@ -266,7 +263,33 @@ def test_sketched_two_means_near_sklearn_on_digits():
                 ours += ((part - part.mean(0)) ** 2).sum() if len(part) else 0.0
             refs += KMeans(2, n_init=10, random_state=0).fit(xi).inertia_
         excess.append(ours / refs - 1)
-    assert np.mean(excess) <= 0.04
+    return excess
+
+
+def test_sketched_two_means_near_sklearn_on_digits():
+    # Reference: sklearn.cluster.KMeans(n_clusters=2, n_init=10). A 16-d count sketch of 256-wide
+    # embeddings with 4 inits: measured here 3.65% more inertia on average (2.2% to 5.1% per
+    # layer; the same sketch without its signs 4.9%, the first 16 units alone 4.6%); the
+    # threshold 5% leaves 1.35 points for other machines' float rounding.
+    excess = _digits_excess(256, n_init=4, n_iter=50, tol=1e-4, sketch_dim=16)
+    assert np.mean(excess) <= 0.05
+
+
+def test_shipped_cluster_term_defaults_near_sklearn_on_digits():
+    # The settings the term ships with (conf/terms/cluster_distance.yaml: 1 start, 5 iterations,
+    # 32-d sketch, tol 1e-4) on 512-wide embeddings, against the same reference: measured here
+    # 5.2% more inertia on average (3.9% to 7.2% per layer). Thresholds 8% on average and 11%
+    # per layer leave about 3 points; the partition of the first assignment alone sits above it.
+    from conftest import REPO
+    from omegaconf import OmegaConf
+
+    shipped = OmegaConf.load(REPO / "conf" / "terms" / "cluster_distance.yaml")
+    term = ClusterDistance(**{k: v for k, v in shipped.items() if k not in ("_target_", "ablation_weight")})
+    assert (term.n_init, term.n_iter, term.sketch_dim) == (1, 5, 32)
+    excess = _digits_excess(512, n_init=term.n_init, n_iter=term.n_iter, tol=term.tol, sketch_dim=term.sketch_dim)
+    assert np.mean(excess) <= 0.08 and max(excess) <= 0.11, excess
+    first_step = _digits_excess(512, n_init=1, n_iter=0, tol=0.0, sketch_dim=0)  # no Lloyd update at all
+    assert np.mean(first_step) > np.mean(excess), (first_step, excess)
 
 
 def test_cluster_distance_on_packed_bags_of_varied_length():
