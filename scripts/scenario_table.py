@@ -15,7 +15,7 @@ from wsad.synthetic import (
     generate_store,
     lag1_autocorrelation,
     load_scenario,
-    oracle_frame_auc,
+    reference_metrics,
     scenario_names,
 )
 
@@ -32,7 +32,8 @@ def measure(name: str, work: Path) -> dict:
            "event snr": cfg.events.snr, "busy snr": cfg.busy.snr,
            "lag-1 autocorr (measured)": f"{lag1_autocorrelation(st):.3f}",
            "anomalous-segment share (test)": f"{anomalous_segment_share(st):.3f}",
-           "oracle frame AUC": f"{oracle_frame_auc(st):.3f}"}
+           "signature reference frame AUC": f"{reference_metrics(st)['frame_auc']:.3f}",
+           "same, 3-segment mean": f"{reference_metrics(st, smooth=3)['frame_auc']:.3f}"}
     shutil.rmtree(root)
     return row
 

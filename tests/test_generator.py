@@ -7,7 +7,7 @@ from conftest import make_store, tree_hash
 
 from wsad.errors import WsadError
 from wsad.store import FeatureStore, check_store
-from wsad.synthetic import lag1_autocorrelation, load_scenario, oracle_frame_auc
+from wsad.synthetic import lag1_autocorrelation, load_scenario, reference_metrics
 
 
 @pytest.mark.parametrize("rho", [0.0, 0.5, 0.9])
@@ -20,12 +20,12 @@ def test_lag1_autocorrelation_tracks_rho(tmp_path, rho):
     assert abs(measured - rho) < 0.03, measured
 
 
-def test_oracle_auc_high_snr_and_chance_at_zero_snr(tmp_path):
+def test_signature_reference_high_snr_and_chance_at_zero_snr(tmp_path):
     big = ["videos_per_camera.test=24", "busy.rate=0"]
     hi = FeatureStore(make_store(tmp_path / "hi", overrides=big + ["events.snr=8"]))
     zero = FeatureStore(make_store(tmp_path / "zero", overrides=big + ["events.snr=0"]))
-    assert oracle_frame_auc(hi) >= 0.95
-    assert abs(oracle_frame_auc(zero) - 0.5) <= 0.05
+    assert reference_metrics(hi)["frame_auc"] >= 0.95
+    assert abs(reference_metrics(zero)["frame_auc"] - 0.5) <= 0.05
 
 
 def test_events_inside_videos_and_only_on_anomalous(small_store):

@@ -10,7 +10,7 @@ import pandas as pd
 from joblib import Parallel, delayed
 from tqdm.auto import tqdm
 
-from .report import paired_tests, t_interval
+from .report.stats import holm, paired_tests, t_interval
 
 
 def _one_run(overrides: list[str]) -> dict:
@@ -69,20 +69,33 @@ def order_study(work: str | Path, knob: str, values: list, seeds: list[int],
     return pd.concat([pd.DataFrame(keys), res[["frame_auc", "frame_ap", "video_auc"]]], axis=1)
 
 
-def order_effect(results: pd.DataFrame, metric: str = "frame_auc", alpha: float = 0.05) -> pd.DataFrame:
+#: A setting speaks about order only where both arms learn: the lower end of each arm's 95%
+#: t-interval over seeds must clear chance (0.5) by this margin.
+LEARNS_ABOVE = 0.55
+
+
+def order_effect(results: pd.DataFrame, metric: str = "frame_auc", alpha: float = 0.05,
+                 learns_above: float = LEARNS_ABOVE) -> pd.DataFrame:
     """Per knob value: shuffled minus sequential, paired by seed (mean, 95% t-interval,
-    paired t and Wilcoxon p), and whether order matters at ``alpha`` (paired t)."""
+    paired t and Wilcoxon p). A setting is tested only where both orders learn (both
+    lower interval bounds above ``learns_above``); across the tested settings the paired
+    t p-values are Holm-adjusted (Holm 1979), and order matters where the adjusted p < alpha."""
     rows = []
     for (knob, value), sub in results.groupby(["knob", "value"], sort=True):
         wide = sub.pivot(index="seed", columns="order", values=metric)
         t = paired_tests(wide["shuffled"].to_numpy(), wide["sequential"].to_numpy())
-        seq = t_interval(wide["sequential"])
-        shf = t_interval(wide["shuffled"])
+        seq, shf = t_interval(wide["sequential"]), t_interval(wide["shuffled"])
+        learns = bool(seq[2] > learns_above and shf[2] > learns_above)
         rows.append({"knob": knob, "value": value, "n": t["n_pairs"],
-                     "sequential": seq[0], "shuffled": shf[0], "diff": t["diff"],
-                     "diff_lo": t["diff_lo"], "diff_hi": t["diff_hi"], "p_t": t["p_t"],
-                     "p_wilcoxon": t["p_wilcoxon"], "order_matters": bool(t["p_t"] < alpha)})
-    return pd.DataFrame(rows)
+                     "sequential": seq[0], "sequential_lo": seq[2], "shuffled": shf[0], "shuffled_lo": shf[2],
+                     "learns": learns, "diff": t["diff"], "diff_lo": t["diff_lo"], "diff_hi": t["diff_hi"],
+                     "p_t": t["p_t"], "p_wilcoxon": t["p_wilcoxon"]})
+    out = pd.DataFrame(rows)
+    out["p_holm"] = np.nan
+    tested = out.index[out.learns]
+    out.loc[tested, "p_holm"] = holm(out.loc[tested, "p_t"].to_numpy())
+    out["order_matters"] = out.learns & (out.p_holm < alpha)
+    return out
 
 
 def order_effect_plot(effect: pd.DataFrame, path: Path | None = None):
@@ -96,14 +109,14 @@ def order_effect_plot(effect: pd.DataFrame, path: Path | None = None):
     for ax, knob in zip(axes[0], knobs):
         e = effect[effect.knob == knob].sort_values("value")
         x = np.arange(len(e))
-        colors = ["tab:red" if m else "tab:gray" for m in e.order_matters]
+        colors = ["tab:red" if m else ("tab:gray" if ok else "none") for m, ok in zip(e.order_matters, e.learns)]
         ax.errorbar(x, e["diff"], yerr=[e["diff"] - e["diff_lo"], e["diff_hi"] - e["diff"]], fmt="none",
                     ecolor="0.4", capsize=4)
-        ax.scatter(x, e["diff"], c=colors, zorder=3, s=40)
+        ax.scatter(x, e["diff"], c=colors, edgecolors="tab:gray", zorder=3, s=40)
         ax.axhline(0, color="k", lw=0.8)
         ax.set_xticks(x, [str(v) for v in e["value"]])
         ax.set(xlabel=knob, ylabel="frame AUC: shuffled - sequential",
-               title=f"window order effect vs {knob}\n(red: paired t p < 0.05)")
+               title=f"window order effect vs {knob}\n(red: Holm p < 0.05; hollow: the model does not learn)")
     fig.tight_layout()
     if path is not None:
         from .evaluate.plots import save_figure
@@ -115,36 +128,41 @@ def order_effect_plot(effect: pd.DataFrame, path: Path | None = None):
 def order_conclusion(effect: pd.DataFrame) -> str:
     """The closing paragraph, written from the numbers."""
     parts = []
-    sig = effect[effect.order_matters]
-    flat = effect[~effect.order_matters]
     n = int(effect["n"].min())
-    for _, r in sig.iterrows():
-        better = "shuffled" if r["diff"] > 0 else "sequential"
-        parts.append(f"at {r.knob}={r.value} window order matters: {better} windows score higher "
-                     f"(shuffled - sequential = {r['diff']:+.3f} frame AUC, 95% CI "
-                     f"[{r.diff_lo:+.3f}, {r.diff_hi:+.3f}], paired t p={r.p_t:.3g}, {n} seeds)")
-    for _, r in flat.iterrows():
-        parts.append(f"at {r.knob}={r.value} it does not measurably matter (difference "
-                     f"{r['diff']:+.3f}, 95% CI [{r.diff_lo:+.3f}, {r.diff_hi:+.3f}], p={r.p_t:.3g})")
+    for _, r in effect.iterrows():
+        where = f"at {r.knob}={r.value}"
+        if not r.learns:
+            parts.append(f"{where} the model does not learn here (lower 95% bounds sequential "
+                         f"{r.sequential_lo:.3f}, shuffled {r.shuffled_lo:.3f}; an effect between two models "
+                         f"near chance says nothing about order)")
+        elif r.order_matters:
+            better = "shuffled" if r["diff"] > 0 else "sequential"
+            parts.append(f"{where} window order matters: {better} windows score higher (shuffled - sequential "
+                         f"= {r['diff']:+.3f} frame AUC, 95% CI [{r.diff_lo:+.3f}, {r.diff_hi:+.3f}], "
+                         f"Holm-adjusted p={r.p_holm:.3g}, {n} seeds)")
+        else:
+            parts.append(f"{where} it does not measurably matter (difference {r['diff']:+.3f}, 95% CI "
+                         f"[{r.diff_lo:+.3f}, {r.diff_hi:+.3f}], Holm-adjusted p={r.p_holm:.3g})")
     text = "; ".join(parts) + "."
-    if sig.empty:
-        text = ("In no setting tried did window order change frame AUC significantly: " + text)
-    elif flat.empty:
-        text = ("Window order mattered in every setting tried: " + text)
-    else:
-        text = text[0].upper() + text[1:]
-    return text + (f" Wilcoxon p-values are reported too; with {n} seeds they cannot fall below "
-                   f"{2 / 2 ** n:.3f}.")
+    text = text[0].upper() + text[1:]
+    learned = effect[effect.learns]
+    if learned.empty:
+        text = "In no setting tried did both orders learn, so this study cannot speak about order. " + text
+    elif not learned.order_matters.any():
+        text = "Where the model learns, window order did not change frame AUC significantly. " + text
+    return text + (f" p-values are Holm-adjusted over the {len(learned)} settings where both orders learn; "
+                   f"with {n} seeds the exact Wilcoxon p cannot fall below {2 / 2 ** n:.3f}.")
 
 
 def effect_markdown(effect: pd.DataFrame) -> str:
-    lines = ["| knob | value | n | sequential | shuffled | shuffled - sequential [95% CI] "
-             "| p (paired t) | p (Wilcoxon) |",
-             "|---|---|---|---|---|---|---|---|"]
+    lines = ["| knob | value | n | sequential | shuffled | both learn | shuffled - sequential [95% CI] "
+             "| p (paired t) | p (Holm) | p (Wilcoxon) |",
+             "|---|---|---|---|---|---|---|---|---|---|"]
     for _, r in effect.iterrows():
         d = f"{r['diff']:+.3f} [{r.diff_lo:+.3f}, {r.diff_hi:+.3f}]"
         if r.order_matters:
             d = f"**{d}**"
-        lines.append(f"| {r.knob} | {r.value} | {r.n} | {r.sequential:.3f} | {r.shuffled:.3f} | {d} | "
-                     f"{r.p_t:.3g} | {r.p_wilcoxon:.3g} |")
+        holm_p = "not tested" if r.p_holm != r.p_holm else f"{r.p_holm:.3g}"
+        lines.append(f"| {r.knob} | {r.value} | {r.n} | {r.sequential:.3f} | {r.shuffled:.3f} | "
+                     f"{'yes' if r.learns else 'no'} | {d} | {r.p_t:.3g} | {holm_p} | {r.p_wilcoxon:.3g} |")
     return "\n".join(lines)

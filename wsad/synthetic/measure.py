@@ -32,23 +32,47 @@ def lag1_autocorrelation(store: FeatureStore, split: str = "train", label: int =
     return float(np.mean(vals))
 
 
-def oracle_scores(store: FeatureStore, video: str) -> np.ndarray:
-    """Per-segment score of an oracle that knows the scenario: the largest
-    projection of x_t on the signatures of the event types that are anomalous
-    in the video's context, less the context's known look. It knows the
-    signatures, not the camera's background, which it cannot tell apart
-    from an event's shift."""
+def _scenario(store: FeatureStore):
     scen = store.meta.get("scenario")
     if scen is None:
-        raise WsadError(f"{store.root} is not a synthetic store; the oracle needs its scenario")
+        raise WsadError(f"{store.root} is not a synthetic store; reference scorers need its scenario")
     cfg = OmegaConf.create(scen)
-    sig = Signatures.build(cfg)
-    ctx = next(k for k in cfg.cameras if store.row(video)["group"].startswith(f"{k}_"))
+    return cfg, Signatures.build(cfg)
+
+
+def _context(cfg, store: FeatureStore, video: str) -> str:
+    return next(k for k in cfg.cameras if store.row(video)["group"].startswith(f"{k}_"))
+
+
+def signature_scores(store: FeatureStore, video: str, smooth: int = 1) -> np.ndarray:
+    """Per-segment score of a reference that knows the scenario's event signatures:
+    the largest projection of x_t - g_k on the signatures of the event types that
+    are anomalous in the video's context k. It does not know the camera's
+    background, which it cannot tell apart from an event's shift. It is a
+    reference, not a ceiling: ``smooth`` > 1 averages it over that many
+    neighbouring segments (a centred moving mean), which already scores higher,
+    since events last several segments."""
+    cfg, sig = _scenario(store)
+    ctx = _context(cfg, store, video)
     kinds = [t for t, spec in cfg.events.types.items() if ctx in spec.get("anomalous_in", [])]
     x = store.views(video).mean(axis=0).astype(np.float64) - sig.context[ctx]
     if not kinds:
         return np.full(len(x), -1e9)
-    return np.max(np.stack([x @ sig.event[t] for t in kinds]), axis=0)
+    proj = np.max(np.stack([x @ sig.event[t] for t in kinds]), axis=0)
+    if smooth > 1:
+        kernel = np.ones(smooth)
+        proj = np.convolve(proj, kernel, "same") / np.convolve(np.ones(len(proj)), kernel, "same")
+    return proj
+
+
+def context_scores(store: FeatureStore, video: str) -> np.ndarray:
+    """A scorer that knows only the scene context: 1 on every segment of a camera
+    whose context can hold an anomaly at all, 0 elsewhere. It knows nothing of
+    events, so whatever frame AUC it reaches is credit for knowing the context."""
+    cfg, _ = _scenario(store)
+    ctx = _context(cfg, store, video)
+    possible = any(ctx in spec.get("anomalous_in", []) for spec in cfg.events.types.values())
+    return np.full(store.n_segments(video), 1.0 if possible else 0.0)
 
 
 def anomalous_segment_share(store: FeatureStore, split: str = "test") -> float:
@@ -66,11 +90,15 @@ def anomalous_segment_share(store: FeatureStore, split: str = "test") -> float:
     return hit / max(1, total)
 
 
-def oracle_frame_auc(store: FeatureStore, split: str = "test") -> float:
-    """Frame AUC of :func:`oracle_scores` on a split (the scenario's ceiling)."""
+def reference_metrics(store: FeatureStore, scorer: str = "signature", split: str = "test",
+                      smooth: int = 1) -> dict[str, float]:
+    """The DESIGN metrics of a reference scorer on a split: ``signature`` (see
+    :func:`signature_scores`, with ``smooth``) or ``context`` (:func:`context_scores`)."""
     from ..evaluate import VideoScores, compute_metrics
 
-    vids = [VideoScores(v, store.row(v)["group"], store.label(v), oracle_scores(store, v),
-                        store.frame_labels(v), store.frames(v), store.segment_frames)
-            for v in store.videos(split)]
-    return compute_metrics(vids)["frame_auc"]
+    def score(v):
+        return signature_scores(store, v, smooth) if scorer == "signature" else context_scores(store, v)
+
+    vids = [VideoScores(v, store.row(v)["group"], store.label(v), score(v), store.frame_labels(v),
+                        store.frames(v), store.segment_frames) for v in store.videos(split)]
+    return compute_metrics(vids)
