@@ -57,6 +57,9 @@ def test_recipe_learns_and_logs_match_parquet(demo_store, tmp_path, recipe):
     assert {"plots/roc.png", "plots/timelines.png"} <= arts
     assert {a.path for a in client.list_artifacts(res["run_id"], "model")} == {"model/checkpoint.pt"}
     assert r.data.params["seed"] == "0" and "data.fingerprint" in r.data.params
+    # 3 test cameras: too few to resample cameras, so intervals take the video as the unit
+    assert r.data.params["trainer.bootstrap_by"] == "video" and r.data.params["trainer.interval"] == "clustered"
+    assert res["frame_auc_lo"] < r.data.metrics["frame_auc"] < res["frame_auc_hi"]
     assert value == pytest.approx(r.data.metrics["weak_val_video_auc"])
 
 
