@@ -59,7 +59,7 @@ def test_notebook_runs_small(path, tmp_path, monkeypatch):
     assert _images(nb) >= 1  # results come as pictures
     text = _text(nb)
     if path.stem.startswith("04"):
-        assert "Wilcoxon p-values are reported too" in text  # the computed conclusion
+        assert "p-values are Holm-adjusted over the" in text  # the computed conclusion
         assert (tmp_path / "nb_work" / "04" / "order_effect.png").exists()
     if path.stem.startswith("03"):
         assert "(exit 2)" in text and "holds NaN" in text and "wsad-score:" in text
