@@ -18,7 +18,7 @@ from wsad.store import FeatureStore
 from wsad.synthetic import generate_store, load_scenario, reference_metrics
 
 SCENARIOS = ["warehouse", "warehouse_correlated", "warehouse_uncorrelated", "warehouse_context"]
-RECIPES = ["topk", "windows", "mil_ranking"]
+RECIPES = ["topk", "windows", "mil_ranking", "magnitude"]
 HEADLINE = {s: "frame_auc" for s in SCENARIOS} | {"warehouse_context": "anomalous_video_auc"}
 REFERENCES = {"signature reference (knows the event signatures)": ("signature", 1),
               "the same, averaged over 3 neighbouring segments": ("signature", 3),
@@ -30,7 +30,9 @@ def main() -> None:
     ap.add_argument("--work", default=None)
     ap.add_argument("--seeds", default="0,1,2")
     ap.add_argument("--jobs", default="2")
+    ap.add_argument("--recipes", default=",".join(RECIPES))
     args = ap.parse_args()
+    recipes = args.recipes.split(",")
     work = Path(args.work or tempfile.mkdtemp(prefix="wsad-recipes-"))
     uri = f"sqlite:///{work}/mlruns.db"
     cells, refs = {}, {}
@@ -41,18 +43,18 @@ def main() -> None:
         for name, (scorer, smooth) in REFERENCES.items():
             refs[(name, scen)] = reference_metrics(FeatureStore(root), scorer, smooth=smooth).get(HEADLINE[scen])
         subprocess.run([sys.executable, "-c", "from wsad.cli.train import main; main()", "-m",
-                        f"data.root={root}", f"recipe={','.join(RECIPES)}", f"seed={args.seeds}",
+                        f"data.root={root}", f"recipe={','.join(recipes)}", f"seed={args.seeds}",
                         "trainer.progress=false", "hydra/launcher=joblib",
                         f"hydra.launcher.n_jobs={args.jobs}", f"tracking.uri={uri}",
                         f"tracking.experiment={scen}", f"hydra.sweep.dir={work}/runs_{scen}"],
-                       check=True, capture_output=True)
+                       check=True, capture_output=True)  # an experiment per scenario; reruns add runs
         runs = load_runs(uri, scen)
-        for recipe in RECIPES:
+        for recipe in recipes:
             vals = runs[runs["params.recipe_name"] == recipe][f"metrics.{HEADLINE[scen]}"].to_numpy()
             cells[(recipe, scen)] = (vals.mean(), vals.std(ddof=1), len(vals))
     print("| recipe | " + " | ".join(f"{s} ({HEADLINE[s]})" for s in SCENARIOS) + " |")
     print("|---|" + "---|" * len(SCENARIOS))
-    for recipe in RECIPES:
+    for recipe in recipes:
         print(f"| {recipe} | " + " | ".join(
             f"{cells[(recipe, s)][0]:.3f} ± {cells[(recipe, s)][1]:.3f}" for s in SCENARIOS) + " |")
     for name in REFERENCES:
