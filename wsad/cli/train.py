@@ -13,7 +13,7 @@ from ..errors import WsadError, guarded
 from ..resources import CONF_DIR
 
 PROG = "wsad-train"
-SHOWN = ("frame_auc", "frame_ap", "anomalous_video_auc", "false_alarm_rate", "video_auc")
+SHOWN = ("frame_auc", "frame_ap", "anomalous_video_auc", "false_alarm_rate", "video_auc", "video_balanced_accuracy")
 
 
 @hydra.main(config_path=str(CONF_DIR), config_name="config", version_base="1.3")

@@ -26,6 +26,8 @@ from ..errors import WsadError
 from ..store.format import SEGMENT_FRAMES, FeatureStore, segments_to_frames
 
 METRICS = ("frame_auc", "frame_ap", "anomalous_video_auc", "false_alarm_rate", "video_auc")
+#: Everything a report aggregates: the metrics above and the video decision at ``video_threshold``.
+REPORTED = METRICS + ("video_threshold", "video_accuracy", "video_balanced_accuracy")
 ALARM_THRESHOLD = 0.5
 
 

@@ -18,7 +18,7 @@ from pathlib import Path
 import pandas as pd
 
 from ..errors import WsadError
-from ..evaluate.metrics import METRICS
+from ..evaluate.metrics import REPORTED
 from .runs import label_keys, label_of, varying_params
 from .stats import holm, paired_tests, t_interval
 
@@ -34,7 +34,7 @@ class Report:
 
 
 def build_report(runs: pd.DataFrame, by: list[str] | None = None, baseline: str | None = None,
-                 metrics: tuple[str, ...] = METRICS, alpha: float = 0.05) -> Report:
+                 metrics: tuple[str, ...] = REPORTED, alpha: float = 0.05) -> Report:
     """Group runs by ``by`` (default: the varying params), aggregate over seeds,
     and pair every variant with ``baseline`` (a variant label, or k=v pairs;
     default: a variant whose values look like the unchanged recipe, else the first)."""

@@ -14,6 +14,7 @@ from ..checkpoint import load_checkpoint, save_torch
 from ..data.scoring import score_videos
 from ..errors import WsadError
 from ..evaluate import grouped_bootstrap, roc_auc, video_scores
+from ..evaluate.decision import choose_video_threshold, video_decision
 from ..store import store_fingerprint
 from .export import export, quiet_metrics
 from .progress import Progress
@@ -124,6 +125,7 @@ def _finish(cfg, s: Setup, prog: Progress, run) -> RunResult:
     if int(cfg.trainer.bootstrap) > 0 and "frame_auc" in final:
         final.update(grouped_bootstrap(test, int(cfg.trainer.bootstrap), seed=int(cfg.seed),
                                        by=cfg.trainer.bootstrap_by, interval=cfg.trainer.get("interval", "clustered")))
+    final.update(_video_decision(s, test))
     final["selected_epoch"] = prog.best_epoch
     selected = prog.history[prog.best_epoch - 1]
     if "weak_val_video_auc" in selected:
@@ -133,6 +135,16 @@ def _finish(cfg, s: Setup, prog: Progress, run) -> RunResult:
     tracking.finish(run, s.out_dir)
     objective = float(final.get("weak_val_video_auc", -prog.history[-1]["train_loss"]))
     return RunResult(final, prog.history, s.out_dir, run.run_id if run else None, objective)
+
+
+def _video_decision(s: Setup, test) -> dict:
+    """``video_threshold`` chosen on the weak-validation videos (the fit videos when
+    none are held out), and the test split's video accuracy at it. No test label
+    takes part in the choice."""
+    held = s.val_videos or s.fit_videos
+    scores = score_videos(s.model, s.store, held, s.std, s.bags.chunks)
+    threshold = choose_video_threshold([x.max() for x in scores.values()], [s.store.label(v) for v in held])
+    return {"video_threshold": threshold, **video_decision(test, threshold)}
 
 
 def _resume_point(cfg: DictConfig) -> tuple[DictConfig, dict]:
