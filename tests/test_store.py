@@ -202,6 +202,27 @@ def case_store_json_dim(r):
     return "-", "dim is 'big'"
 
 
+def _set_fps(r, value):
+    meta = json.loads((r / "store.json").read_text())
+    meta["fps"] = value
+    (r / "store.json").write_text(json.dumps(meta))
+
+
+def case_fps_text(r):
+    _set_fps(r, "25fps")
+    return "-", "fps is '25fps'"
+
+
+def case_fps_zero(r):
+    _set_fps(r, 0)
+    return "-", "fps is 0"
+
+
+def case_fps_bool(r):
+    _set_fps(r, True)
+    return "-", "fps is True"
+
+
 CASES = [v for k, v in sorted(globals().items()) if k.startswith("case_")]
 
 
@@ -322,3 +343,23 @@ def test_fingerprint_tracks_content(small_store, tmp_path):
 def test_store_refuses_unknown_crop_mode(small_store):
     with pytest.raises(WsadError, match="crops"):
         FeatureStore(small_store, crops="median")
+
+
+def test_fps_is_optional_written_by_the_generator_and_by_index(small_store, tmp_path):
+    assert FeatureStore(small_store).fps == 25.0       # the scenarios say 25
+    root = _copy(small_store, tmp_path / "nofps")
+    meta = json.loads((root / "store.json").read_text())
+    meta.pop("fps")
+    (root / "store.json").write_text(json.dumps(meta))
+    assert [p for p in check_store(root) if p.severity == "error"] == []
+    assert FeatureStore(root).fps is None
+    feats = tmp_path / "feats"
+    feats.mkdir()
+    np.save(feats / "a.npy", np.zeros((4, 3), np.float32))
+    np.save(feats / "b.npy", np.ones((5, 3), np.float32))
+    pd.DataFrame({"video": ["a", "b"], "label": [0, 1], "split": ["train", "train"]}).to_csv(
+        tmp_path / "labels.csv", index=False)
+    out = build_store(feats, tmp_path / "labels.csv", tmp_path / "indexed", fps=29.97)
+    assert FeatureStore(out).fps == pytest.approx(29.97)
+    with pytest.raises(WsadError, match="--fps"):
+        build_store(feats, tmp_path / "labels.csv", tmp_path / "indexed2", fps=-1)

@@ -21,9 +21,11 @@ def _main(argv: list[str]) -> int:
     ap.add_argument("--copy", action="store_true", help="copy arrays instead of symlinking them")
     ap.add_argument("--segment-frames", type=int, default=SEGMENT_FRAMES,
                     help=f"frames per segment of your arrays (default {SEGMENT_FRAMES})")
+    ap.add_argument("--fps", type=float, default=None,
+                    help="frames per second of the source footage (needed for anything measured in time)")
     args = ap.parse_args(argv)
     out = build_store(args.features_dir, args.labels, args.out, events_csv=args.events,
-                      copy=args.copy, segment_frames=args.segment_frames)
+                      copy=args.copy, segment_frames=args.segment_frames, fps=args.fps)
     problems = check_store(out)
     for p in problems:
         print(p)

@@ -63,6 +63,8 @@ class FeatureStore:
                             "run wsad-check for details") from None
         self.dim = int(self.meta["dim"])
         self.segment_frames = int(self.meta.get("segment_frames", SEGMENT_FRAMES))
+        #: frames per second of the source footage, or None when store.json does not say
+        self.fps = float(self.meta["fps"]) if self.meta.get("fps") is not None else None
         self.manifest = pd.read_csv(self.root / "manifest.csv", dtype={"video": str, "group": str,
                                                                        "file": str, "split": str})
         ev_path = self.root / "events.csv"

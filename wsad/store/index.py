@@ -34,7 +34,7 @@ def _safe_name(video: str, taken: set[str]) -> str:
 
 def build_store(features_dir: str | Path, labels_csv: str | Path, out: str | Path,
                 events_csv: str | Path | None = None, copy: bool = False,
-                segment_frames: int = SEGMENT_FRAMES, description: str = "") -> Path:
+                segment_frames: int = SEGMENT_FRAMES, description: str = "", fps: float | None = None) -> Path:
     """Create a store at ``out`` (which must not exist, or be an empty folder).
 
     ``labels_csv`` has columns ``video,label,split`` and optionally ``group``
@@ -43,6 +43,8 @@ def build_store(features_dir: str | Path, labels_csv: str | Path, out: str | Pat
     becomes ``T * segment_frames``.
     """
     features_dir, out = Path(features_dir), Path(out)
+    if fps is not None and not 0 < float(fps) < 10_000:
+        raise WsadError(f"--fps {fps}: give the footage's frames per second as a positive number (e.g. 25)")
     if not features_dir.is_dir():
         raise WsadError(f"features folder {features_dir} does not exist")
     refuse_existing(out, "--out", "wsad-index")
@@ -99,5 +101,6 @@ def build_store(features_dir: str | Path, labels_csv: str | Path, out: str | Pat
         man.to_csv(tmp / "manifest.csv", index=False)
         if ev is not None:
             ev.to_csv(tmp / "events.csv", index=False)
-        write_store_json(tmp, dims.pop(), segment_frames, description or f"indexed from {features_dir}")
+        extra = {} if fps is None else {"fps": float(fps)}
+        write_store_json(tmp, dims.pop(), segment_frames, description or f"indexed from {features_dir}", **extra)
     return out

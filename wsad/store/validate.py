@@ -56,6 +56,11 @@ def _read_store_json(root: Path, out: list[Problem]) -> dict | None:
         if not isinstance(val, int) or isinstance(val, bool) or val <= 0:
             out.append(Problem("-", f"store.json {key} is {val!r}; it must be a positive integer"))
             ok = False
+    fps = meta.get("fps")
+    if fps is not None and (isinstance(fps, bool) or not isinstance(fps, (int, float)) or not 0 < fps < 10_000):
+        out.append(Problem("-", f"store.json fps is {fps!r}; give the source's frames per second as a positive "
+                           "number (e.g. 25), or leave the key out"))
+        ok = False
     return meta if ok else None
 
 
@@ -274,7 +279,8 @@ def summarize(root: str | Path) -> str:
     st = FeatureStore(root)
     m = st.manifest
     lines = [f"store {Path(root)}: {st.meta.get('description', '')}".rstrip(": ")]
-    lines.append(f"  dim {st.dim}, {st.segment_frames} frames per segment")
+    lines.append(f"  dim {st.dim}, {st.segment_frames} frames per segment"
+                 + (f", {st.fps:g} fps" if st.fps else ", fps not given (time-based measures need it)"))
     lines.append("  split  label     videos  groups  segments   frames")
     total_seg = 0
     for split in SPLITS:

@@ -190,5 +190,5 @@ def generate_store(cfg: DictConfig, out: str | Path, progress: bool = True) -> P
         pd.DataFrame(events, columns=["video", "start", "end"]).to_csv(tmp / "events.csv", index=False)
         write_store_json(tmp, cfg.dim, cfg.segment_frames,
                          f"synthetic scenario {cfg.name}: {cfg.description}".strip(),
-                         scenario=OmegaConf.to_container(cfg, resolve=True))
+                         fps=float(cfg.get("fps", 25)), scenario=OmegaConf.to_container(cfg, resolve=True))
     return out

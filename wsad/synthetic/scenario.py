@@ -53,6 +53,7 @@ def _validate(cfg: DictConfig) -> None:
             raise WsadError(f"scenario {cfg.get('name', '?')}: {msg}")
 
     need(int(cfg.dim) >= 2, "dim must be at least 2")
+    need(0 < float(cfg.get("fps", 25)) < 10_000, "fps must be a positive number of frames per second")
     need(str(cfg.dtype) in ("float16", "float32"), "dtype must be float16 or float32")
     need(int(cfg.crops) >= 1, "crops must be >= 1")
     need(0.0 <= float(cfg.rho) < 1.0, "rho must lie in [0, 1)")
