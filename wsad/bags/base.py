@@ -26,8 +26,15 @@ class BagConstruction:
     def batches(self, items: list[Item], epoch: int, seed: int) -> list[list[int]]:
         raise NotImplementedError
 
+    #: True when batches carry segment targets (``targets`` below), which some terms need
+    gives_targets: bool = False
+
     def pairs(self, batch_items: list[Item]) -> torch.Tensor | None:
         """[P, 2] rows (anomalous, normal) of the batch, or None when it has no pairs."""
+        return None
+
+    def targets(self, batch_items: list[Item], width: int) -> torch.Tensor | None:
+        """[B, width] segment labels of the batch (1, 0, -1 = none), or None."""
         return None
 
 

@@ -29,12 +29,14 @@ class Item:
 class Batch:
     """Packed bags. ``x`` [N, D] the real segments of bag 0, then bag 1, ...
     (N = mask.sum()), ``mask`` [B, T] (True = real segment),
-    ``y`` [B] video labels, ``pairs`` [P, 2] rows (anomalous, normal) or None."""
+    ``y`` [B] video labels, ``pairs`` [P, 2] rows (anomalous, normal) or None,
+    ``targets`` [B, T] segment labels (1, 0, or -1 = no label) or None."""
 
     x: torch.Tensor
     mask: torch.Tensor
     y: torch.Tensor
     pairs: torch.Tensor | None = None
+    targets: torch.Tensor | None = None
 
     def padded(self) -> torch.Tensor:
         """``x`` as [B, T, D] with zeros on padding."""
@@ -47,6 +49,8 @@ class Construction(Protocol):
     chunks: int | None
 
     def pairs(self, batch_items: list[Item]) -> torch.Tensor | None: ...
+
+    def targets(self, batch_items: list[Item], width: int) -> torch.Tensor | None: ...
 
 
 class BagLoader:
@@ -103,4 +107,4 @@ class BagLoader:
         mask = np.arange(lengths.max())[None, :] < lengths[:, None]
         return Batch(x, torch.from_numpy(mask),
                      torch.tensor([it.label for it in items], dtype=torch.float32),
-                     self.bags.pairs(items))
+                     self.bags.pairs(items), self.bags.targets(items, mask.shape[1]))

@@ -27,6 +27,7 @@ class TermInputs:
         y: [B] video labels (0/1).
         bag_scores: [B] pooled bag scores.
         pairs: [P, 2] (anomalous row, normal row), or None.
+        targets: [B, T] segment labels (1, 0, -1 = none), or None.
     """
 
     out: HeadOutput
@@ -34,11 +35,12 @@ class TermInputs:
     y: torch.Tensor
     bag_scores: torch.Tensor | None = None
     pairs: torch.Tensor | None = None
+    targets: torch.Tensor | None = None
 
     @classmethod
     def of(cls, out: HeadOutput, y: torch.Tensor, bag_scores: torch.Tensor | None,
-           pairs: torch.Tensor | None = None) -> TermInputs:
-        return cls(out, out.scores, y, bag_scores, pairs)
+           pairs: torch.Tensor | None = None, targets: torch.Tensor | None = None) -> TermInputs:
+        return cls(out, out.scores, y, bag_scores, pairs, targets)
 
     @property
     def mask(self) -> torch.Tensor:
@@ -60,7 +62,10 @@ class TermInputs:
 
 
 class Term:
-    """Base class of objective terms: ``term(inp) -> scalar tensor``."""
+    """Base class of objective terms: ``term(inp) -> scalar tensor``. ``needs_targets``:
+    the term reads segment targets, so only bag constructions that give them fit it."""
+
+    needs_targets: bool = False
 
     def __call__(self, inp: TermInputs) -> torch.Tensor:
         raise NotImplementedError

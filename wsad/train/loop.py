@@ -3,6 +3,7 @@ new bag construction, head, pooling or term plugs in through its YAML, not here.
 from __future__ import annotations
 
 import time
+from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 
@@ -39,35 +40,34 @@ def train(cfg: DictConfig, overrides: list[str] | None = None) -> RunResult:
     """Train, evaluate and log one run.
 
     ``trainer.resume=RUN_ID`` continues an interrupted run from its last saved
-    state, with the configuration it was started with."""
+    state, with the configuration it was started with. A config with a
+    ``self_training`` block runs two stages in the one run (:mod:`.self_training`)."""
     state = None
     if cfg.trainer.get("resume"):
         cfg, state = _resume_point(cfg)
     else:
         apply_ablation(cfg)
     seed_everything(int(cfg.seed), cfg.trainer.threads)
+    if cfg.get("self_training"):
+        from .self_training import train_two_stages
+
+        return train_two_stages(cfg, overrides, state)
     s = build(cfg)
     prog = Progress.start(s) if state is None else Progress.restore(state, s)
-    run = _start_run(cfg, overrides, s, cfg.trainer.get("resume"))
+    run = start_run(cfg, overrides, s, cfg.trainer.get("resume"))
     resume_path = s.out_dir / "state" / "resume.pt"
     tracking.set_tag(run, "wsad.resume_checkpoint", str(resume_path.resolve()))
+    with closing_run(run, resume_path):
+        fit(cfg, s, prog, run, resume_path)
+        return finish(cfg, s, prog, run)
+
+
+@contextmanager
+def closing_run(run, resume_path: Path):
+    """Close the MLflow run as KILLED (its resume checkpoint uploaded) when the
+    training was stopped by a signal, as FAILED on any other error."""
     try:
-        with GracefulStop() as stop:
-            bar = tqdm(range(prog.epoch, s.epochs + 1), desc=f"train {cfg.get('recipe_name', '')}".strip(),
-                       unit="epoch", disable=not cfg.trainer.progress, initial=prog.epoch - 1,
-                       total=s.epochs)
-            for epoch in bar:
-                row = _train_epoch(cfg, s, prog, epoch, stop, resume_path, run)
-                started = time.perf_counter()
-                row.update(_evaluate_epoch(cfg, s, epoch))
-                row["time/eval_s"] = time.perf_counter() - started
-                prog.record(epoch, row, s, cfg.trainer.select)
-                tracking.log_metrics(run, row, step=epoch)
-                save_torch(resume_path, prog.snapshot(cfg, s))
-                bar.set_postfix(loss=f"{row['train_loss']:.4f}",
-                                val=f"{row.get('weak_val_video_auc', float('nan')):.3f}",
-                                auc=f"{row.get('frame_auc', float('nan')):.3f}")
-        result = _finish(cfg, s, prog, run)
+        yield
     except TrainingInterrupted:
         tracking.log_state(run, resume_path)
         tracking.finish(run, None, status="KILLED")
@@ -75,11 +75,32 @@ def train(cfg: DictConfig, overrides: list[str] | None = None) -> RunResult:
     except BaseException:
         tracking.finish(run, None, status="FAILED")
         raise
-    return result
+
+
+def fit(cfg: DictConfig, s: Setup, prog: Progress, run, resume_path: Path, prefix: str = "",
+        saved: tuple[DictConfig, dict] | None = None) -> None:
+    """The epochs from ``prog.epoch`` on: train, evaluate, keep the selected model, log
+    (metric names under ``prefix``), save the resume state after every epoch.
+    ``saved``: the config and extra fields the resume state records (default: ``cfg``)."""
+    saved_cfg, extra = saved or (cfg, {})
+    with GracefulStop() as stop:
+        bar = tqdm(range(prog.epoch, s.epochs + 1), desc=f"train {prefix}{cfg.get('recipe_name', '')}".strip(),
+                   unit="epoch", disable=not cfg.trainer.progress, initial=prog.epoch - 1, total=s.epochs)
+        for epoch in bar:
+            row = _train_epoch(cfg, s, prog, epoch, stop, resume_path, run, saved_cfg, extra)
+            started = time.perf_counter()
+            row.update(_evaluate_epoch(cfg, s, epoch))
+            row["time/eval_s"] = time.perf_counter() - started
+            prog.record(epoch, row, s, cfg.trainer.select)
+            tracking.log_metrics(run, {prefix + k: v for k, v in row.items()}, step=epoch)
+            save_torch(resume_path, {**prog.snapshot(saved_cfg, s), **extra})
+            bar.set_postfix(loss=f"{row['train_loss']:.4f}",
+                            val=f"{row.get('weak_val_video_auc', float('nan')):.3f}",
+                            auc=f"{row.get('frame_auc', float('nan')):.3f}")
 
 
 def _train_epoch(cfg, s: Setup, prog: Progress, epoch: int, stop: GracefulStop, resume_path: Path,
-                 run) -> dict:
+                 run, saved_cfg: DictConfig, extra: dict) -> dict:
     """One pass over the epoch's batches (from ``prog.batch`` after a stop mid-epoch)."""
     s.model.train()
     started, segments = time.perf_counter(), 0
@@ -90,7 +111,7 @@ def _train_epoch(cfg, s: Setup, prog: Progress, epoch: int, stop: GracefulStop, 
         res = step(s.model, s.pooling, s.terms, batch, s.optimizer, cfg.trainer.grad_clip)
         prog.add_step(res.loss, res.terms)
         if stop.requested:  # the step is done: save where we are, then stop
-            save_torch(resume_path, prog.snapshot(cfg, s, epoch, bi + 1))
+            save_torch(resume_path, {**prog.snapshot(saved_cfg, s, epoch, bi + 1), **extra})
             raise TrainingInterrupted(
                 f"stopped by signal {stop.signum} in epoch {epoch} after batch {bi + 1}; "
                 f"resume with trainer.resume={run.run_id if run else '<run id>'}", stop.signum)
@@ -117,8 +138,9 @@ def _evaluate_epoch(cfg, s: Setup, epoch: int) -> dict:
     return row
 
 
-def _finish(cfg, s: Setup, prog: Progress, run) -> RunResult:
-    """The selected model: final metrics, intervals, artifacts; the run is closed."""
+def final_metrics(cfg, s: Setup, prog: Progress) -> tuple[dict, list]:
+    """The selected model's test metrics, intervals and video decision (the model is left
+    holding the selected state), and its test scores."""
     s.model.load_state_dict(prog.best_state)
     test = video_scores(s.store, score_videos(s.model, s.store, s.test_videos, s.std, s.bags.chunks))
     final = quiet_metrics(test)
@@ -130,8 +152,14 @@ def _finish(cfg, s: Setup, prog: Progress, run) -> RunResult:
     selected = prog.history[prog.best_epoch - 1]
     if "weak_val_video_auc" in selected:
         final["weak_val_video_auc"] = selected["weak_val_video_auc"]
+    return final, test
+
+
+def finish(cfg, s: Setup, prog: Progress, run, saved_cfg: DictConfig | None = None) -> RunResult:
+    """The selected model: final metrics logged, artifacts written, the run closed."""
+    final, test = final_metrics(cfg, s, prog)
     tracking.log_metrics(run, final, step=s.epochs)
-    export(s.out_dir, cfg, s, test, prog.history)
+    export(s.out_dir, saved_cfg or cfg, s, test, prog.history)
     tracking.finish(run, s.out_dir)
     objective = float(final.get("weak_val_video_auc", -prog.history[-1]["train_loss"]))
     return RunResult(final, prog.history, s.out_dir, run.run_id if run else None, objective)
@@ -161,7 +189,7 @@ def _resume_point(cfg: DictConfig) -> tuple[DictConfig, dict]:
     return saved, state
 
 
-def _start_run(cfg: DictConfig, overrides, s: Setup, resume_id: str | None = None):
+def start_run(cfg: DictConfig, overrides, s: Setup, resume_id: str | None = None):
     if not cfg.tracking.enabled:
         return None
     if resume_id:

@@ -132,6 +132,10 @@ def build(cfg: DictConfig) -> Setup:
     bags = build_component(cfg.bags, "bags")
     pooling = build_component(cfg.pooling, "pooling")
     terms = build_terms(cfg)
+    for name, (_, term) in terms.items():
+        if getattr(term, "needs_targets", False) and not getattr(bags, "gives_targets", False):
+            raise WsadError(f"objective.{name} needs segment labels, which bags={type(bags).__name__} does not "
+                            "give (they come from recipe=self_training's second stage)")
     errors = [p for p in check_store(cfg.data.root) if p.severity == "error"]
     if errors:
         raise WsadError(f"the store {cfg.data.root} has {len(errors)} problem(s), first: {errors[0]}; "

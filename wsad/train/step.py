@@ -20,7 +20,7 @@ def objective(model: torch.nn.Module, pooling: Pooling, terms: dict[str, tuple[f
               batch: Batch) -> tuple[torch.Tensor, dict[str, float]]:
     """L = sum_j w_j L_j(batch) and each L_j, without touching the gradients."""
     out = model(batch.x, batch.mask)
-    inp = TermInputs.of(out, batch.y, pooling(out, batch.mask), batch.pairs)
+    inp = TermInputs.of(out, batch.y, pooling(out, batch.mask), batch.pairs, batch.targets)
     loss, values = 0.0, {}
     for name, (w, term) in terms.items():
         value = term(inp)
