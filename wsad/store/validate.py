@@ -32,16 +32,14 @@ class Problem:
 
 
 def _read_store_json(root: Path, out: list[Problem]) -> dict | None:
-    path = root / "store.json"
+    path, example = root / "store.json", '{"format": 1, "dim": D, "segment_frames": 16}'
     if not path.is_file():
-        out.append(Problem("-", "store.json is missing; write "
-                           '{"format": 1, "dim": D, "segment_frames": 16} at the store root'))
+        out.append(Problem("-", f"store.json is missing; write {example} at the store root"))
         return None
     try:
         meta = json.loads(path.read_text())
     except (OSError, UnicodeDecodeError, ValueError) as err:
-        out.append(Problem("-", f"store.json is not valid JSON ({err}); rewrite it as "
-                           '{"format": 1, "dim": D, "segment_frames": 16}'))
+        out.append(Problem("-", f"store.json is not valid JSON ({err}); rewrite it as {example}"))
         return None
     if not isinstance(meta, dict):
         out.append(Problem("-", "store.json must hold a JSON object with format, dim, segment_frames"))
@@ -58,8 +56,7 @@ def _read_store_json(root: Path, out: list[Problem]) -> dict | None:
             ok = False
     fps = meta.get("fps")
     if fps is not None and (isinstance(fps, bool) or not isinstance(fps, (int, float)) or not 0 < fps < 10_000):
-        out.append(Problem("-", f"store.json fps is {fps!r}; give the source's frames per second as a positive "
-                           "number (e.g. 25), or leave the key out"))
+        out.append(Problem("-", f"store.json fps is {fps!r}; give the frames per second as a positive number"))
         ok = False
     return meta if ok else None
 

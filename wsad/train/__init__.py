@@ -1,7 +1,8 @@
 """Training: the setup built from the config (:mod:`.setup`), one step
 (:mod:`.step`), the loop around it (:mod:`.loop`), and what lets a stopped run
 resume (:mod:`.progress`, :mod:`.resume`)."""
-from .loop import RunResult, train
+from .entry import train
+from .loop import RunResult
 from .setup import Setup, apply_ablation, build, build_terms, seed_everything
 from .step import StepResult, objective, step
 

@@ -7,20 +7,19 @@ from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 
-from omegaconf import DictConfig, OmegaConf
+from omegaconf import DictConfig
 from tqdm.auto import tqdm
 
 from .. import tracking
-from ..checkpoint import load_checkpoint, save_torch
+from ..checkpoint import save_torch
 from ..data.scoring import score_videos
-from ..errors import WsadError
 from ..evaluate import grouped_bootstrap, roc_auc, video_scores
 from ..evaluate.decision import choose_video_threshold, video_decision
 from ..store import store_fingerprint
 from .export import export, quiet_metrics
 from .progress import Progress
-from .resume import GracefulStop, TrainingInterrupted, find_checkpoint
-from .setup import Setup, apply_ablation, build, seed_everything
+from .resume import GracefulStop, TrainingInterrupted
+from .setup import Setup, build
 from .step import step
 
 
@@ -36,22 +35,8 @@ class RunResult:
                                 # video AUC (held-out train cameras), never a test metric
 
 
-def train(cfg: DictConfig, overrides: list[str] | None = None) -> RunResult:
-    """Train, evaluate and log one run.
-
-    ``trainer.resume=RUN_ID`` continues an interrupted run from its last saved
-    state, with the configuration it was started with. A config with a
-    ``self_training`` block runs two stages in the one run (:mod:`.self_training`)."""
-    state = None
-    if cfg.trainer.get("resume"):
-        cfg, state = _resume_point(cfg)
-    else:
-        apply_ablation(cfg)
-    seed_everything(int(cfg.seed), cfg.trainer.threads)
-    if cfg.get("self_training"):
-        from .self_training import train_two_stages
-
-        return train_two_stages(cfg, overrides, state)
+def train_one_stage(cfg: DictConfig, overrides: list[str] | None, state: dict | None) -> RunResult:
+    """One run of one recipe, from ``state`` when it resumes one (see :func:`wsad.train.train`)."""
     s = build(cfg)
     prog = Progress.start(s) if state is None else Progress.restore(state, s)
     run = start_run(cfg, overrides, s, cfg.trainer.get("resume"))
@@ -173,20 +158,6 @@ def _video_decision(s: Setup, test) -> dict:
     scores = score_videos(s.model, s.store, held, s.std, s.bags.chunks)
     threshold = choose_video_threshold([x.max() for x in scores.values()], [s.store.label(v) for v in held])
     return {"video_threshold": threshold, **video_decision(test, threshold)}
-
-
-def _resume_point(cfg: DictConfig) -> tuple[DictConfig, dict]:
-    """The saved state of run ``trainer.resume`` and the config it was started with."""
-    run_id = str(cfg.trainer.resume)
-    if not cfg.tracking.enabled:
-        raise WsadError("trainer.resume needs tracking (the run id names the run to continue)")
-    path = find_checkpoint(run_id, tracking.resolve_uri(str(cfg.tracking.uri)))
-    state = load_checkpoint(path)
-    saved = OmegaConf.create(state["config"])
-    saved.trainer.resume = run_id
-    saved.trainer.progress = cfg.trainer.progress
-    saved.tracking = cfg.tracking
-    return saved, state
 
 
 def start_run(cfg: DictConfig, overrides, s: Setup, resume_id: str | None = None):
