@@ -126,8 +126,8 @@ def test_train_refuses_a_broken_store_in_one_line(small_store, tmp_path):
 
 
 @pytest.mark.parametrize("args,expect", [
-    (["head=transformer"], "choose one of: gated_attention, mlp, temporal"),
-    (["recipe=nope"], "choose one of: mil_ranking, topk, windows"),
+    (["head=transformer"], "choose one of: dilated, gated_attention, mlp, self_attention, temporal"),
+    (["recipe=nope"], "choose one of: magnitude, mil_ranking, self_training, topk, windows"),
     (["bags=crops"], "choose one of:"),
     (["objective.foo=1"], "known terms: bag_bce, cluster_distance"),
     (["objective.sparsity=-1"], "must be >= 0"),
