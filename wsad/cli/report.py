@@ -34,11 +34,13 @@ def _main(argv: list[str]) -> int:
     rep = build_report(runs, by=by, baseline=args.baseline, metrics=REPORTED, alpha=args.alpha)
     paths = write_report(rep, args.out, uri, headline=args.metric, plots=not args.no_plots, plan=args.plan)
     print(markdown_table(rep, args.metric))
-    if args.plan is not None:
-        from ..report.planning import plan_markdown, plan_table
+    if args.plan is not None:  # the plan write_report made
+        import pandas as pd
+
+        from ..report.planning import plan_markdown
 
         print()
-        print(plan_markdown(plan_table(rep.table, rep.baseline, args.plan), args.metric))
+        print(plan_markdown(pd.read_csv(paths["plan"]), args.metric))
     print()
     for k, p in paths.items():
         print(f"  {k:<16} {p}")

@@ -66,6 +66,15 @@ def clustered_auc(videos: list[VideoScores], by: str = "video") -> tuple[float, 
     return auc, float(np.sqrt(max(var, 0.0))), k
 
 
+def clustered_interval(videos: list[VideoScores], by: str = "video",
+                       level: float = 0.95) -> tuple[float, float, float, int]:
+    """AUC +- t_{(1+level)/2, I-1} se over I clusters (see :func:`clustered_auc`),
+    clipped to [0, 1]. Returns (lo, hi, se, I)."""
+    a, se, k = clustered_auc(videos, by)
+    half = float(stats.t.ppf((1 + level) / 2, k - 1)) * se
+    return max(0.0, a - half), min(1.0, a + half), se, k
+
+
 def bootstrap_indices(n_videos: int, n_resamples: int, seed: int) -> np.ndarray:
     """Resampled video indices [n_resamples, n_videos] (with replacement)."""
     return np.random.default_rng(seed).integers(0, n_videos, size=(n_resamples, n_videos))
@@ -151,8 +160,7 @@ def grouped_bootstrap(videos: list[VideoScores], n_resamples: int = 1000, seed: 
     """Intervals for frame AUC and AP with the video (``by="video"``) or the camera
     (``by="group"``) as the unit.
 
-    ``interval="clustered"``: AUC +- t_{(1+level)/2, I-1} se, with se from
-    :func:`clustered_auc` over I clusters (clipped to [0, 1]); ``"percentile"``:
+    ``interval="clustered"``: :func:`clustered_interval`; ``"percentile"``:
     the percentile interval of the AUC over ``n_resamples`` cluster resamples.
     AP always takes the percentile interval over the resamples.
 
@@ -169,11 +177,10 @@ def grouped_bootstrap(videos: list[VideoScores], n_resamples: int = 1000, seed: 
     lo_a, hi_a = np.percentile(auc[keep], q)
     lo_p, hi_p = np.percentile(ap[keep], q)
     out = {"frame_ap_lo": float(lo_p), "frame_ap_hi": float(hi_p), "bootstrap_kept": int(keep.sum())}
-    a, se, k = clustered_auc(videos, by)
+    lo_c, hi_c, se, k = clustered_interval(videos, by, level)
     out["interval_clusters"] = k
     if interval == "clustered":
-        half = float(stats.t.ppf((1 + level) / 2, k - 1)) * se
-        lo_a, hi_a = max(0.0, a - half), min(1.0, a + half)
+        lo_a, hi_a = lo_c, hi_c
         out["frame_auc_se"] = se
     out.update({"frame_auc_lo": float(lo_a), "frame_auc_hi": float(hi_a)})
     return out

@@ -5,8 +5,9 @@ besides the seed) and each metric: mean, sd, n and the 95% t-interval
 mean +- t_{0.975, n-1} sd / sqrt(n) over seeds. Each variant is paired with a
 baseline by seed; the differences d_i get their mean with a 95% t-interval,
 the paired t-test p-value (scipy.stats.ttest_rel) and the Wilcoxon signed-rank
-p-value (scipy.stats.wilcoxon). A difference is *significant* when the paired
-t-test gives p < alpha (its interval then excludes 0). Note: with n seeds the
+p-value (scipy.stats.wilcoxon). The paired t p-values of one table are
+Holm-adjusted over its comparisons (Holm 1979); a difference is *significant*
+when the adjusted p < alpha. Note: with n seeds the
 exact two-sided Wilcoxon p cannot fall below 2 / 2^n (0.25 at n=3, 0.0625 at
 n=5), so it only becomes informative from about 6 seeds on.
 """
