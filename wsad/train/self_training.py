@@ -28,6 +28,8 @@ def stage_configs(cfg: DictConfig) -> tuple[DictConfig, DictConfig]:
     """Stage 1: the config without its ``self_training`` block. Stage 2: the same with
     the block's ``bags``, ``objective`` (every other term off) and ``epochs``."""
     st = cfg.self_training
+    if not 0.0 <= float(st.threshold) <= 1.0:   # checked before stage 1 spends any time
+        raise WsadError(f"self_training.threshold={st.threshold}; use a share of the video's score range in [0, 1]")
     first = OmegaConf.create(OmegaConf.to_container(cfg, resolve=True))
     with open_dict(first):
         first.pop("self_training")
@@ -41,8 +43,6 @@ def stage_configs(cfg: DictConfig) -> tuple[DictConfig, DictConfig]:
 
 def pseudo_labels(s: Setup, threshold: float) -> dict[str, np.ndarray]:
     """Segment labels of the stage-1 fit videos from its selected model (see module doc)."""
-    if not 0.0 <= threshold <= 1.0:
-        raise WsadError(f"self_training.threshold={threshold}; use a share of the video's score range in [0, 1]")
     scores = score_videos(s.model, s.store, s.fit_videos, s.std, s.bags.chunks)
     return {v: label_segments(x, s.store.label(v), threshold) for v, x in scores.items()}
 
