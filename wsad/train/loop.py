@@ -3,6 +3,7 @@ new bag construction, head, pooling or term plugs in through its YAML, not here.
 from __future__ import annotations
 
 import time
+import warnings
 from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
@@ -19,7 +20,8 @@ from ..store import store_fingerprint
 from .export import export, quiet_metrics
 from .progress import Progress
 from .resume import GracefulStop, TrainingInterrupted
-from .setup import Setup, build
+from .selection import choose_epochs, chooses_epochs, refit_config, too_small
+from .setup import Setup, build, seed_everything
 from .step import step
 
 
@@ -37,14 +39,28 @@ class RunResult:
 
 def train_one_stage(cfg: DictConfig, overrides: list[str] | None, state: dict | None) -> RunResult:
     """One run of one recipe, from ``state`` when it resumes one (see :func:`wsad.train.train`)."""
+    logged, chosen, small = cfg, None, None
+    if state is None and chooses_epochs(cfg):  # choose the epoch count first, then refit on all
+        epochs, value, curve, small = choose_epochs(cfg)
+        chosen = {"weak_val_video_auc": value, "selection/epochs": float(epochs)}
+        cfg = refit_config(cfg, epochs)
+        seed_everything(int(cfg.seed), cfg.trainer.threads)
     s = build(cfg)
+    if cfg.trainer.select == "weak_val":
+        small = too_small(s.store, s.val_videos)
     prog = Progress.start(s) if state is None else Progress.restore(state, s)
-    run = start_run(cfg, overrides, s, cfg.trainer.get("resume"))
+    run = start_run(logged, overrides, s, cfg.trainer.get("resume"))
     resume_path = s.out_dir / "state" / "resume.pt"
     tracking.set_tag(run, "wsad.resume_checkpoint", str(resume_path.resolve()))
+    if small:
+        warnings.warn(small, stacklevel=2)
+        tracking.set_tag(run, "wsad.weak_val_too_small", small)
     with closing_run(run, resume_path):
+        if chosen:
+            for epoch, value in enumerate(curve, 1):
+                tracking.log_metrics(run, {"selection/mean_weak_val_video_auc": value}, step=epoch)
         fit(cfg, s, prog, run, resume_path)
-        return finish(cfg, s, prog, run)
+        return finish(cfg, s, prog, run, chosen=chosen)
 
 
 @contextmanager
@@ -76,7 +92,7 @@ def fit(cfg: DictConfig, s: Setup, prog: Progress, run, resume_path: Path, prefi
             started = time.perf_counter()
             row.update(_evaluate_epoch(cfg, s, epoch))
             row["time/eval_s"] = time.perf_counter() - started
-            prog.record(epoch, row, s, cfg.trainer.select)
+            prog.record(epoch, row, s, cfg.trainer)
             tracking.log_metrics(run, {prefix + k: v for k, v in row.items()}, step=epoch)
             save_torch(resume_path, {**prog.snapshot(saved_cfg, s), **extra})
             bar.set_postfix(loss=f"{row['train_loss']:.4f}",
@@ -140,9 +156,12 @@ def final_metrics(cfg, s: Setup, prog: Progress) -> tuple[dict, list]:
     return final, test
 
 
-def finish(cfg, s: Setup, prog: Progress, run, saved_cfg: DictConfig | None = None) -> RunResult:
-    """The selected model: final metrics logged, artifacts written, the run closed."""
+def finish(cfg, s: Setup, prog: Progress, run, saved_cfg: DictConfig | None = None,
+           chosen: dict | None = None) -> RunResult:
+    """The selected model: final metrics logged, artifacts written, the run closed.
+    ``chosen``: what an epoch-count choice before a refit measured (logged with the rest)."""
     final, test = final_metrics(cfg, s, prog)
+    final.update(chosen or {})
     tracking.log_metrics(run, final, step=s.epochs)
     export(s.out_dir, saved_cfg or cfg, s, test, prog.history)
     tracking.finish(run, s.out_dir)

@@ -9,6 +9,7 @@ from dataclasses import dataclass, field
 from omegaconf import DictConfig, OmegaConf
 
 from .resume import rng_state, set_rng_state
+from .selection import smoothed
 from .setup import Setup
 
 
@@ -44,13 +45,20 @@ class Progress:
         self.partial = _empty_sums(s.terms)
         return row
 
-    def record(self, epoch: int, row: dict, s: Setup, select: str) -> None:
+    def record(self, epoch: int, row: dict, s: Setup, trainer: DictConfig) -> None:
         """Keep the epoch's row; keep its model when it is the best so far
-        (``weak_val``: highest weak-validation video AUC, ties to the later
-        epoch; ``last``: every epoch replaces the one before)."""
+        (``weak_val``: highest weak-validation video AUC, averaged over the last
+        ``select_smooth`` epochs, from ``min_epoch`` on, ties to the later epoch;
+        ``last``: every epoch replaces the one before)."""
         self.history.append({"epoch": epoch, **row})
-        chosen = row["weak_val_video_auc"] if select == "weak_val" else epoch
-        if chosen >= self.best_value:
+        if trainer.select == "weak_val":
+            curve = [r["weak_val_video_auc"] for r in self.history]
+            chosen = smoothed(curve, int(trainer.get("select_smooth", 1)))[-1]
+            if epoch < int(trainer.get("min_epoch", 1)):
+                chosen = -math.inf
+        else:
+            chosen = epoch
+        if chosen >= self.best_value and chosen > -math.inf:
             self.best_value = chosen
             self.best_state = {n: v.clone() for n, v in s.model.state_dict().items()}
             self.best_epoch = epoch

@@ -51,18 +51,24 @@ def apply_ablation(cfg: DictConfig) -> None:
     cfg.objective[name] = 0.0 if float(cfg.objective[name]) > 0 else on
 
 
-def weak_validation_split(store: FeatureStore, share: float) -> tuple[list[str], list[str]]:
+def weak_validation_split(store: FeatureStore, share: float, folds: int = 1,
+                          fold: int = 0) -> tuple[list[str], list[str]]:
     """Hold out whole train groups (cameras) for weak validation: video AUC on
     video labels, never test labels. Fixed by the data, not the seed, so every
-    variant and seed is selected on the same videos."""
+    variant and seed is selected on the same videos. With ``folds`` > 1 the
+    groups are dealt into that many folds and fold ``fold`` is held out
+    (``share`` is then unused)."""
     train = store.videos("train")
-    if share <= 0:
+    if share <= 0 and folds <= 1:
         return train, []
     m = store.manifest[store.manifest["split"] == "train"]
     groups = sorted(m["group"].unique())
     rng = np.random.default_rng(12345)
     held: list[str] = []
-    for g in rng.permutation(groups):
+    order = rng.permutation(groups)
+    if folds > 1:
+        held = list(order[fold::folds])
+    for g in order if folds <= 1 else ():
         if len(held) >= share * len(groups):
             break
         held.append(g)
@@ -76,8 +82,9 @@ def weak_validation_split(store: FeatureStore, share: float) -> tuple[list[str],
                       "side; holding out videos instead (cameras may then be shared)", stacklevel=2)
         idx = rng.permutation(len(train))
         n = max(2, int(round(share * len(train))))
-        val = [train[i] for i in idx[:n]]
-        fit = [train[i] for i in idx[n:]]
+        taken = set(idx[fold::folds]) if folds > 1 else set(idx[:n])
+        val = [train[i] for i in idx if i in taken]
+        fit = [train[i] for i in idx if i not in taken]
     return fit, val
 
 
@@ -129,6 +136,7 @@ def build(cfg: DictConfig) -> Setup:
     epochs = int(cfg.trainer.epochs)
     if epochs < 1:
         raise WsadError(f"trainer.epochs={epochs}; train for at least 1 epoch")
+    check_selection(cfg.trainer, epochs)
     bags = build_component(cfg.bags, "bags")
     pooling = build_component(cfg.pooling, "pooling")
     terms = build_terms(cfg)
@@ -141,7 +149,9 @@ def build(cfg: DictConfig) -> Setup:
         raise WsadError(f"the store {cfg.data.root} has {len(errors)} problem(s), first: {errors[0]}; "
                         f"run wsad-check {cfg.data.root}")
     store = FeatureStore(cfg.data.root, crops=cfg.data.crops)
-    fit_videos, val_videos = weak_validation_split(store, float(cfg.trainer.weak_val_share))
+    folds = int(cfg.trainer.get("weak_val_folds", 1))
+    fit_videos, val_videos = weak_validation_split(store, float(cfg.trainer.weak_val_share), folds,
+                                                   int(cfg.trainer.get("weak_val_fold", 0)))
     if cfg.trainer.select == "weak_val" and not val_videos:
         raise WsadError("trainer.select=weak_val needs trainer.weak_val_share > 0")
     resolve_interval_unit(cfg, store)
@@ -156,6 +166,21 @@ def build(cfg: DictConfig) -> Setup:
     loader = BagLoader(store, bags, std, ArrayCache(float(cfg.data.cache_mb)))
     return Setup(store, fit_videos, val_videos, store.videos("test"), std, bags, pooling,
                  bags.items(store, fit_videos), loader, model, terms, optimizer, schedule, epochs, out_dir)
+
+
+def check_selection(trainer: DictConfig, epochs: int) -> None:
+    """The model-selection settings (see :mod:`wsad.train.selection`)."""
+    smooth, min_epoch = int(trainer.get("select_smooth", 1)), int(trainer.get("min_epoch", 1))
+    folds = int(trainer.get("weak_val_folds", 1))
+    if smooth < 1:
+        raise WsadError(f"trainer.select_smooth={smooth}; use 1 (no smoothing) or a window of epochs")
+    if not 1 <= min_epoch <= epochs:
+        raise WsadError(f"trainer.min_epoch={min_epoch}; use 1..trainer.epochs ({epochs})")
+    if folds < 1:
+        raise WsadError(f"trainer.weak_val_folds={folds}; use 1 (one held-out share) or k >= 2 folds")
+    if (folds > 1 or trainer.get("refit")) and trainer.select != "weak_val":
+        raise WsadError("trainer.weak_val_folds > 1 and trainer.refit select an epoch count on weak "
+                        "validation; they need trainer.select=weak_val")
 
 
 def resolve_interval_unit(cfg: DictConfig, store: FeatureStore) -> None:
