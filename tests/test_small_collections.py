@@ -39,7 +39,8 @@ def test_auc_standard_error_by_hand():
     # SE^2 = (0.16 + 9 * 0.0267 + 9 * 0.0711) / 100 = 0.0104, SE = 0.102 (worked by hand)
     assert auc_standard_error(0.8, 10, 10) == pytest.approx(0.10198, abs=1e-4)
     # with 1000 + 1000 it shrinks like 1/sqrt(n): sqrt(Q1 + Q2 - 2A^2) / sqrt(1000)
-    assert auc_standard_error(0.8, 1000, 1000) == pytest.approx(math.sqrt(0.6667 + 0.7111 - 1.28) / math.sqrt(1000), rel=1e-2)
+    expected = math.sqrt(0.6667 + 0.7111 - 1.28) / math.sqrt(1000)
+    assert auc_standard_error(0.8, 1000, 1000) == pytest.approx(expected, rel=1e-2)
 
 
 def test_folds_hold_out_every_training_group_once(small_store):

@@ -68,7 +68,8 @@ def too_small(store, val_videos: list[str]) -> str | None:
         return (f"weak validation holds {n_pos} anomalous and {n_neg} normal videos (< {MIN_VIDEOS_PER_CLASS} "
                 f"of a class): near 0.8 its video AUC has a standard error of about "
                 f"{auc_standard_error(0.8, max(1, n_pos), max(1, n_neg)):.2f}, "
-                "so the selected epoch is close to chance; consider trainer.weak_val_folds=5 or trainer.select=last")
+                "so the selected epoch is close to chance; trainer.select=last was steadier on collections this "
+                "small (README, \"Small collections\")")
     return None
 
 
