@@ -1,0 +1,90 @@
+"""Alarms, event matching and per-hour rates against brute-force versions written here
+independently (plain Python over frames) and hand-made timelines with known answers."""
+from __future__ import annotations
+
+import math
+
+import numpy as np
+import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
+
+from wsad.errors import WsadError
+from wsad.evaluate.alarms import AlarmRules, alarm_runs, alarms_per_hour, budget_threshold, match_events
+
+
+def brute_alarms(above, min_frames=1, merge_gap=0):
+    runs, i = [], 0
+    while i < len(above):
+        if above[i]:
+            j = i
+            while j < len(above) and above[j]:
+                j += 1
+            runs.append([i, j])
+            i = j
+        else:
+            i += 1
+    merged = []
+    for r in runs:
+        if merged and r[0] - merged[-1][1] <= merge_gap:
+            merged[-1][1] = r[1]
+        else:
+            merged.append(r)
+    return [r for r in merged if r[1] - r[0] >= min_frames]
+
+
+def brute_match(alarms, events):
+    caught, delays = [], []
+    for s, e in events:
+        frames = [f for a, b in alarms for f in range(a, b) if s <= f < e]
+        caught.append(bool(frames))
+        delays.append(min(frames) - s if frames else math.nan)
+    false = sum(1 for a, b in alarms if not any(s <= f < e for s, e in events for f in range(a, b)))
+    return caught, delays, false
+
+
+def test_hand_made_timeline():
+    #          0 1 2 3 4 5 6 7 8 9 10 11
+    above = np.array([0, 1, 1, 0, 1, 0, 0, 0, 1, 1, 1, 0], bool)
+    assert alarm_runs(above).tolist() == [[1, 3], [4, 5], [8, 11]]
+    assert alarm_runs(above, AlarmRules(merge_gap=1)).tolist() == [[1, 5], [8, 11]]   # gap of 1 frame merged
+    assert alarm_runs(above, AlarmRules(min_frames=2)).tolist() == [[1, 3], [8, 11]]  # the 1-frame alarm dropped
+    # events [2, 4) and [6, 8) and [10, 20): the first caught at frame 2 (delay 0), the second
+    # missed (alarm [8, 11) starts at its end), the third caught at 10; no false alarm except [4, 5)
+    m = match_events(alarm_runs(above), np.array([[2, 4], [6, 8], [10, 20]]))
+    assert m.caught.tolist() == [True, False, True]
+    assert m.delay_frames[0] == 0 and math.isnan(m.delay_frames[1]) and m.delay_frames[2] == 0
+    assert m.false_alarms == 1
+    # an event that starts before the alarm: delay = alarm start - event start
+    m = match_events(np.array([[5, 9]]), np.array([[2, 7]]))
+    assert m.delay_frames.tolist() == [3.0] and m.false_alarms == 0
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.lists(st.booleans(), max_size=60), st.integers(1, 4), st.integers(0, 3),
+       st.lists(st.tuples(st.integers(0, 60), st.integers(1, 12)), max_size=4))
+def test_against_brute_force(above, min_frames, merge_gap, raw_events):
+    above = np.array(above, bool)
+    alarms = alarm_runs(above, AlarmRules(min_frames, merge_gap))
+    assert alarms.tolist() == brute_alarms(above.tolist(), min_frames, merge_gap)
+    events = np.array([[s, s + n] for s, n in raw_events]).reshape(-1, 2)
+    m = match_events(alarms, events)
+    caught, delays, false = brute_match(alarms.tolist(), events.tolist())
+    assert m.caught.tolist() == caught and m.false_alarms == false
+    assert np.allclose(m.delay_frames, delays, equal_nan=True)
+
+
+def test_rate_and_budget_threshold_by_hand():
+    fps = 1.0  # 3600 frames = one hour
+    hour = np.zeros(3600)
+    hour[[100, 200, 300]] = [0.9, 0.8, 0.7]    # three separate peaks
+    assert alarms_per_hour([hour], 0.75, fps) == pytest.approx(2.0)
+    assert alarms_per_hour([hour, np.zeros(3600)], 0.75, fps) == pytest.approx(1.0)   # two camera-hours
+    # budget 2 per hour: 0.8 gives 2 alarms, 0.7 gives 3: the lowest within budget is 0.8
+    assert budget_threshold([hour], fps, 2.0) == pytest.approx(0.8)
+    # budget 0: no peak may fire, so the threshold sits just above the highest score
+    assert budget_threshold([hour], fps, 0.0) > 0.9
+    with pytest.raises(WsadError, match="budget"):
+        budget_threshold([hour], fps, -1.0)
+    with pytest.raises(WsadError, match="min_frames"):
+        AlarmRules(min_frames=0)

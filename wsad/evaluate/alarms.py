@@ -1,0 +1,100 @@
+"""Alarms: what a deployed threshold would raise, and how it meets the ground truth.
+
+A frame is *above* when its score >= the threshold. An **alarm** is a maximal run of
+above frames, after two optional rules, applied in this order:
+
+1. runs separated by at most ``merge_gap`` below frames are merged into one alarm
+   (default 0: no merging);
+2. alarms shorter than ``min_frames`` frames are dropped (default 1: none dropped).
+
+Alarms and events are half-open frame intervals ``[start, end)``. An alarm and an
+event **overlap** when they share at least one frame: ``a.start < e.end and
+e.start < a.end``. An event is *caught* when at least one alarm overlaps it; its
+*delay* is the first frame of an overlapping alarm inside the event minus the
+event's start. A *false alarm* overlaps no event.
+"""
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+
+from ..errors import WsadError
+
+
+@dataclass(frozen=True)
+class AlarmRules:
+    """How above-threshold frames become alarms (see the module docstring)."""
+
+    min_frames: int = 1
+    merge_gap: int = 0
+
+    def __post_init__(self):
+        if int(self.min_frames) < 1:
+            raise WsadError(f"alarm min_frames={self.min_frames}; use 1 (keep every alarm) or more")
+        if int(self.merge_gap) < 0:
+            raise WsadError(f"alarm merge_gap={self.merge_gap}; use 0 (no merging) or more frames")
+
+
+def alarm_runs(above: np.ndarray, rules: AlarmRules = AlarmRules()) -> np.ndarray:
+    """``[n_alarms, 2]`` start/end (exclusive) frames of the alarms in a boolean frame mask."""
+    above = np.asarray(above, dtype=bool)
+    edges = np.diff(np.concatenate([[False], above, [False]]).astype(np.int8))
+    starts, ends = np.flatnonzero(edges == 1), np.flatnonzero(edges == -1)
+    if len(starts) and rules.merge_gap > 0:
+        keep = np.concatenate([[True], starts[1:] - ends[:-1] > rules.merge_gap])
+        starts = starts[keep]
+        ends = ends[np.concatenate([keep[1:], [True]])]
+    runs = np.stack([starts, ends], axis=1) if len(starts) else np.zeros((0, 2), dtype=np.int64)
+    return runs[runs[:, 1] - runs[:, 0] >= rules.min_frames]
+
+
+@dataclass
+class EventMatch:
+    """How one video's alarms meet its events."""
+
+    caught: np.ndarray        # [n_events] bool
+    delay_frames: np.ndarray  # [n_events] frames from start to the first alarm frame inside (nan when missed)
+    false_alarms: int         # alarms overlapping no event
+
+
+def match_events(alarms: np.ndarray, events: np.ndarray) -> EventMatch:
+    """Match ``alarms`` ``[A, 2]`` against ``events`` ``[E, 2]`` (both half-open frame intervals)."""
+    alarms = np.asarray(alarms, dtype=np.int64).reshape(-1, 2)
+    events = np.asarray(events, dtype=np.int64).reshape(-1, 2)
+    # overlap[a, e]: alarm a shares a frame with event e
+    overlap = (alarms[:, None, 0] < events[None, :, 1]) & (events[None, :, 0] < alarms[:, None, 1])
+    caught = overlap.any(axis=0)
+    first_inside = np.maximum(alarms[:, None, 0], events[None, :, 0]).astype(np.float64)
+    first_inside[~overlap] = np.inf
+    first = first_inside.min(axis=0) if len(alarms) else np.full(len(events), np.inf)
+    delay = np.where(caught, first - events[:, 0], np.nan)
+    return EventMatch(caught, delay, int((~overlap.any(axis=1)).sum()) if len(events) else len(alarms))
+
+
+def alarms_per_hour(frame_scores: list[np.ndarray], threshold: float, fps: float,
+                    rules: AlarmRules = AlarmRules()) -> float:
+    """Alarms per hour of footage raised on ``frame_scores`` (one array per video) at ``threshold``."""
+    frames = sum(len(s) for s in frame_scores)
+    count = sum(len(alarm_runs(s >= threshold, rules)) for s in frame_scores)
+    return count / (frames / fps / 3600.0)
+
+
+def budget_threshold(normal_scores: list[np.ndarray], fps: float, budget: float,
+                     rules: AlarmRules = AlarmRules()) -> float:
+    """The lowest threshold whose alarm rate on ``normal_scores`` (frame scores of videos known
+    to be wholly normal, e.g. held-out normal *training* videos) is within ``budget`` alarms
+    per hour, at it and at every higher candidate (the rate is not monotone in the threshold:
+    raising it can split one alarm into two, so the first crossing from above is kept).
+    Candidates are the distinct scores; above the highest score no alarm is raised."""
+    if budget < 0:
+        raise WsadError(f"evaluate.budget={budget}; give alarms per camera-hour >= 0")
+    if not normal_scores or not sum(len(s) for s in normal_scores):
+        raise WsadError("a budget threshold needs held-out normal training videos")
+    candidates = np.unique(np.concatenate(normal_scores))[::-1]   # high to low
+    chosen = float(np.nextafter(candidates[0], np.inf))            # no alarm at all
+    for t in candidates:
+        if alarms_per_hour(normal_scores, float(t), fps, rules) > budget:
+            break
+        chosen = float(t)
+    return chosen
