@@ -88,3 +88,41 @@ def test_rate_and_budget_threshold_by_hand():
         budget_threshold([hour], fps, -1.0)
     with pytest.raises(WsadError, match="min_frames"):
         AlarmRules(min_frames=0)
+
+
+def test_det_points_equal_scikit_learn():
+    from sklearn.metrics import det_curve  # reference: scikit-learn
+
+    from wsad.evaluate.det import det_points
+
+    rng = np.random.default_rng(0)
+    y = rng.random(2000) < 0.2
+    s = np.round(rng.normal(size=2000) + y, 2)          # rounded: many ties
+    fpr, fnr, thr = det_points(s, y)
+    ref_fpr, ref_fnr, ref_thr = det_curve(y, s)
+    at = np.searchsorted(thr, ref_thr)                   # our point at each of sklearn's thresholds
+    assert np.array_equal(thr[at], ref_thr)
+    assert np.allclose(fpr[at], ref_fpr) and np.allclose(fnr[at], ref_fnr)
+
+
+def test_event_metrics_on_hand_made_videos():
+    from wsad.evaluate.alarms import event_metrics
+    from wsad.evaluate.metrics import VideoScores
+
+    fps = 16.0   # one segment = one second
+    truth = np.zeros(64, bool)
+    truth[16:32] = True    # one event: segment 1
+    anomalous = VideoScores("a", "cam1", 1, np.array([0.1, 0.2, 0.9, 0.1]), truth, 64, 16)
+    normal = VideoScores("n", "cam2", 0, np.array([0.8, 0.1, 0.1, 0.8]), np.zeros(64, bool), 64, 16)
+    m, rows = event_metrics([anomalous, normal], {"a": np.array([[16, 32]])}, 0.5, fps)
+    # the anomalous video's alarm [32, 48) starts at the event's end: missed, and a false alarm;
+    # the normal video raises two: 3 false alarms in 128 frames = 8 s
+    assert m["alarm/event_recall"] == 0.0
+    assert m["alarm/false_per_hour"] == pytest.approx(3 / (8 / 3600))
+    assert m["alarm/frame_precision"] == 0.0 and m["alarm/frame_recall"] == 0.0
+    m, rows = event_metrics([anomalous, normal], {"a": np.array([[16, 32]])}, 0.15, fps)
+    # at 0.15: the alarm [16, 48) catches the event at its first frame (delay 0); frames 16..47
+    # and the normal video's 0..15, 48..63 are above: precision 16 / (32 + 32), recall 1
+    assert m["alarm/event_recall"] == 1.0 and m["alarm/delay_s"] == 0.0
+    assert m["alarm/frame_precision"] == pytest.approx(16 / 64) and m["alarm/frame_recall"] == 1.0
+    assert {r["group"]: r["false_alarms"] for r in rows} == {"cam1": 0, "cam2": 2}

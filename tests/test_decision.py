@@ -49,6 +49,7 @@ def test_no_test_label_chooses_the_threshold(small_store, tmp_path):
     perm = _permuted_copy(small_store, tmp_path / "perm")
     b = train(compose_config([f"data.root={perm}", f"trainer.out_dir={tmp_path}/b", *common]))
     assert a.metrics["video_threshold"] == b.metrics["video_threshold"]
+    assert a.metrics["alarm/threshold"] == b.metrics["alarm/threshold"]   # the budget threshold too
     # the accuracy at it, recomputed from the exported scores (reference: scikit-learn)
     table = pd.read_parquet(tmp_path / "a" / "scores" / "test_scores.parquet")
     man = pd.read_csv(small_store / "manifest.csv", dtype={"video": str}).set_index("video")

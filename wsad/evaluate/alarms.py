@@ -98,3 +98,41 @@ def budget_threshold(normal_scores: list[np.ndarray], fps: float, budget: float,
             break
         chosen = float(t)
     return chosen
+
+
+def event_metrics(videos, events: dict[str, np.ndarray], threshold: float, fps: float,
+                  rules: AlarmRules = AlarmRules()) -> tuple[dict[str, float], list[dict]]:
+    """The ``alarm/*`` metrics of test ``videos`` (:class:`~wsad.evaluate.metrics.VideoScores`)
+    at ``threshold``, and one row per camera (false alarms per hour, events caught).
+
+    ``events``: ``{video: [E, 2]}`` half-open frame intervals; anomalous videos without
+    events take no part in recall or delay, and their alarms are not counted as false."""
+    caught, delays, false, frames, per_cam = [], [], 0, 0, {}
+    tp = fp = fn = 0
+    for v in videos:
+        if v.label == 1 and v.frame_labels is None:
+            continue
+        scores = v.frame_scores()
+        above = scores >= threshold
+        m = match_events(alarm_runs(above, rules), events.get(v.video, np.zeros((0, 2))))
+        caught += m.caught.tolist()
+        delays += m.delay_frames[m.caught].tolist()
+        false += m.false_alarms
+        frames += len(scores)
+        truth = v.frame_labels.astype(bool) if v.frame_labels is not None else np.zeros(len(scores), bool)
+        tp, fp, fn = tp + int((above & truth).sum()), fp + int((above & ~truth).sum()), fn + int((~above & truth).sum())
+        row = per_cam.setdefault(v.group, {"group": v.group, "hours": 0.0, "false_alarms": 0, "events": 0, "caught": 0})
+        row["hours"] += len(scores) / fps / 3600.0
+        row["false_alarms"] += m.false_alarms
+        row["events"] += len(m.caught)
+        row["caught"] += int(m.caught.sum())
+    hours = frames / fps / 3600.0
+    out = {"alarm/threshold": float(threshold),
+           "alarm/event_recall": float(np.mean(caught)) if caught else float("nan"),
+           "alarm/false_per_hour": false / hours if hours else float("nan"),
+           "alarm/delay_s": float(np.median(delays)) / fps if delays else float("nan"),
+           "alarm/frame_precision": tp / (tp + fp) if tp + fp else float("nan"),
+           "alarm/frame_recall": tp / (tp + fn) if tp + fn else float("nan")}
+    rows = [{**r, "false_per_hour": r["false_alarms"] / r["hours"] if r["hours"] else float("nan")}
+            for r in per_cam.values()]
+    return out, rows

@@ -2,25 +2,32 @@
 new bag construction, head, pooling or term plugs in through its YAML, not here."""
 from __future__ import annotations
 
+import copy
+import tempfile
 import time
 import warnings
 from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 
-from omegaconf import DictConfig
+import numpy as np
+import pandas as pd
+from omegaconf import DictConfig, open_dict
 from tqdm.auto import tqdm
 
 from .. import tracking
 from ..checkpoint import save_torch
 from ..data.scoring import score_videos
 from ..evaluate import grouped_bootstrap, roc_auc, video_scores
+from ..evaluate.alarms import AlarmRules, budget_threshold, event_metrics
 from ..evaluate.decision import choose_video_threshold, video_decision
+from ..files import atomic_path
 from ..store import store_fingerprint
+from ..store.format import segments_to_frames
 from .export import export, quiet_metrics
 from .progress import Progress
 from .resume import GracefulStop, TrainingInterrupted
-from .selection import choose_epochs, chooses_epochs, refit_config, too_small
+from .selection import chooses_epochs, pick_epoch, refit_config, too_small
 from .setup import Setup, build, seed_everything
 from .step import step
 
@@ -149,6 +156,7 @@ def final_metrics(cfg, s: Setup, prog: Progress) -> tuple[dict, list]:
         final.update(grouped_bootstrap(test, int(cfg.trainer.bootstrap), seed=int(cfg.seed),
                                        by=cfg.trainer.bootstrap_by, interval=cfg.trainer.get("interval", "clustered")))
     final.update(_video_decision(s, test))
+    final.update(alarm_metrics(cfg, s, test))
     final["selected_epoch"] = prog.best_epoch
     selected = prog.history[prog.best_epoch - 1]
     if "weak_val_video_auc" in selected:
@@ -177,6 +185,60 @@ def _video_decision(s: Setup, test) -> dict:
     scores = score_videos(s.model, s.store, held, s.std, s.bags.chunks)
     threshold = choose_video_threshold([x.max() for x in scores.values()], [s.store.label(v) for v in held])
     return {"video_threshold": threshold, **video_decision(test, threshold)}
+
+
+def choose_epochs(cfg: DictConfig) -> tuple[int, float, list[float], str | None]:
+    """Train once per fold (or once on the usual held-out share), silently and without
+    tracking, and choose the epoch count on the mean weak-validation curve.
+    Returns the epochs, the selected smoothed value, the mean curve, and why the
+    held-out videos are too small to select on (None when they are not)."""
+    folds = int(cfg.trainer.get("weak_val_folds", 1))
+    curves, small = [], None
+    for fold in range(folds):
+        sub = copy.deepcopy(cfg)
+        with open_dict(sub):
+            sub.trainer.weak_val_fold = fold
+            sub.trainer.eval_every = 10 ** 9  # test metrics are not needed to choose
+            sub.trainer.progress = False
+            sub.trainer.out_dir = tempfile.mkdtemp(prefix="wsad-fold-")
+        seed_everything(int(cfg.seed), cfg.trainer.threads)
+        s = build(sub)
+        small = small or too_small(s.store, s.val_videos)
+        prog = Progress.start(s)
+        fit(sub, s, prog, None, Path(sub.trainer.out_dir) / "resume.pt", prefix=f"fold {fold + 1}/{folds} ")
+        curves.append([r["weak_val_video_auc"] for r in prog.history])
+    mean = list(np.mean(np.array(curves), axis=0))
+    epochs, value = pick_epoch(mean, int(cfg.trainer.get("select_smooth", 1)), int(cfg.trainer.get("min_epoch", 1)))
+    return epochs, value, [float(x) for x in mean], small
+
+
+def alarm_metrics(cfg, s: Setup, test) -> dict:
+    """``alarm/*`` at the threshold that keeps the held-out normal *training* videos within
+    ``evaluate.budget`` alarms per camera-hour (no test label chooses it); the per-camera
+    table goes to ``scores/alarms_per_camera.csv``. Skipped, with one line, when the store
+    has no fps or no normal video is held out."""
+    ev = cfg.get("evaluate") or {}
+    if s.store.fps is None:
+        warnings.warn("alarm metrics skipped: store.json has no fps (set it with wsad-index --fps or "
+                      "the store.json key \"fps\")", stacklevel=2)
+        return {}
+    normal = [v for v in s.val_videos if s.store.label(v) == 0]
+    if not normal:
+        warnings.warn("alarm metrics skipped: no normal training video is held out for weak validation",
+                      stacklevel=2)
+        return {}
+    fps = s.store.fps
+    rules = AlarmRules(max(1, round(float(ev.get("min_alarm_s", 0.0)) * fps)),
+                       round(float(ev.get("merge_gap_s", 0.0)) * fps))
+    held = score_videos(s.model, s.store, normal, s.std, s.bags.chunks)
+    frames = [segments_to_frames(x, s.store.frames(v), s.store.segment_frames) for v, x in held.items()]
+    threshold = budget_threshold(frames, fps, float(ev.get("budget", 1.0)), rules)
+    events = {v: g[["start", "end"]].to_numpy() for v, g in s.store.events.groupby("video")}
+    metrics, rows = event_metrics(test, events, threshold, fps, rules)
+    (s.out_dir / "scores").mkdir(parents=True, exist_ok=True)
+    with atomic_path(s.out_dir / "scores" / "alarms_per_camera.csv") as tmp:
+        pd.DataFrame(rows).to_csv(tmp, index=False)
+    return metrics
 
 
 def start_run(cfg: DictConfig, overrides, s: Setup, resume_id: str | None = None):

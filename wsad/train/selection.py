@@ -18,8 +18,6 @@ from __future__ import annotations
 
 import copy
 import math
-import tempfile
-from pathlib import Path
 
 import numpy as np
 from omegaconf import DictConfig, open_dict
@@ -76,35 +74,6 @@ def too_small(store, val_videos: list[str]) -> str | None:
 def chooses_epochs(cfg: DictConfig) -> bool:
     """Whether the run first chooses an epoch count, then refits on all training videos."""
     return int(cfg.trainer.get("weak_val_folds", 1)) > 1 or bool(cfg.trainer.get("refit"))
-
-
-def choose_epochs(cfg: DictConfig) -> tuple[int, float, list[float], str | None]:
-    """Train once per fold (or once on the usual held-out share), silently and without
-    tracking, and choose the epoch count on the mean weak-validation curve.
-    Returns the epochs, the selected smoothed value, the mean curve, and why the
-    held-out videos are too small to select on (None when they are not)."""
-    from .loop import fit
-    from .progress import Progress
-    from .setup import build, seed_everything
-
-    folds = int(cfg.trainer.get("weak_val_folds", 1))
-    curves, small = [], None
-    for fold in range(folds):
-        sub = copy.deepcopy(cfg)
-        with open_dict(sub):
-            sub.trainer.weak_val_fold = fold
-            sub.trainer.eval_every = 10 ** 9  # test metrics are not needed to choose
-            sub.trainer.progress = False
-            sub.trainer.out_dir = tempfile.mkdtemp(prefix="wsad-fold-")
-        seed_everything(int(cfg.seed), cfg.trainer.threads)
-        s = build(sub)
-        small = small or too_small(s.store, s.val_videos)
-        prog = Progress.start(s)
-        fit(sub, s, prog, None, Path(sub.trainer.out_dir) / "resume.pt", prefix=f"fold {fold + 1}/{folds} ")
-        curves.append([r["weak_val_video_auc"] for r in prog.history])
-    mean = list(np.mean(np.array(curves), axis=0))
-    epochs, value = pick_epoch(mean, int(cfg.trainer.get("select_smooth", 1)), int(cfg.trainer.get("min_epoch", 1)))
-    return epochs, value, [float(x) for x in mean], small
 
 
 def refit_config(cfg: DictConfig, epochs: int) -> DictConfig:
