@@ -126,3 +126,30 @@ def test_event_metrics_on_hand_made_videos():
     assert m["alarm/event_recall"] == 1.0 and m["alarm/delay_s"] == 0.0
     assert m["alarm/frame_precision"] == pytest.approx(16 / 64) and m["alarm/frame_recall"] == 1.0
     assert {r["group"]: r["false_alarms"] for r in rows} == {"cam1": 0, "cam2": 2}
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.lists(st.integers(0, 3), min_size=1, max_size=40), st.integers(1, 5), st.integers(0, 4),
+       st.integers(0, 3))
+def test_run_length_count_equals_frame_count(segment_values, min_frames, merge_gap, cut):
+    # budget_threshold counts alarms on runs of equal scores; the frame mask is the reference
+    from wsad.evaluate.alarms import _constant_runs, _count_alarms
+
+    frames = np.repeat(np.array(segment_values, float) / 3, 4)
+    rules = AlarmRules(min_frames, merge_gap)
+    values, bounds = _constant_runs(frames)
+    assert _count_alarms(values, bounds, cut / 3, rules) == len(brute_alarms((frames >= cut / 3).tolist(),
+                                                                              min_frames, merge_gap))
+
+
+def test_event_front_keeps_only_unbeaten_points():
+    import pandas as pd
+
+    from wsad.evaluate.plots import event_front
+
+    # (false/h, miss) by hand: (0, .9) and (2, .5) and (5, 0) are unbeaten; (3, .6) is beaten by
+    # (2, .5) and (1, .9) by (0, .9)
+    ev = pd.DataFrame({"threshold": [0.9, 0.8, 0.7, 0.6, 0.5], "false_per_hour": [0, 1, 3, 2, 5],
+                       "event_miss": [0.9, 0.9, 0.6, 0.5, 0.0]})
+    front = event_front(ev)
+    assert front[["false_per_hour", "event_miss"]].values.tolist() == [[0, 0.9], [2, 0.5], [5, 0.0]]

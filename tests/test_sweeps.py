@@ -63,7 +63,10 @@ def test_eight_runs_four_workers_fresh_sqlite(small_store, tmp_path):
     table = __import__("pandas").read_csv(tmp_path / "report" / "report.csv")
     fa = table[table.metric == "frame_auc"]
     assert (fa["n"] == 4).all() and fa["lo"].notna().all() and fa["p_wilcoxon"].notna().sum() == 1
-    for png in ("frame_auc_by_variant.png", "roc_overlay.png", "learning_curves.png", "timelines.png"):
+    recall = table[table.metric == "alarm/event_recall"]   # the operating point, over seeds too
+    assert len(recall) == 2 and (recall["n"] == 4).all()
+    for png in ("frame_auc_by_variant.png", "roc_overlay.png", "learning_curves.png", "timelines.png",
+                "det_overlay.png"):
         assert (tmp_path / "report" / png).stat().st_size > 10_000
 
 

@@ -18,6 +18,7 @@ from __future__ import annotations
 from dataclasses import dataclass
 
 import numpy as np
+import pandas as pd
 
 from ..errors import WsadError
 
@@ -40,13 +41,31 @@ def alarm_runs(above: np.ndarray, rules: AlarmRules = AlarmRules()) -> np.ndarra
     """``[n_alarms, 2]`` start/end (exclusive) frames of the alarms in a boolean frame mask."""
     above = np.asarray(above, dtype=bool)
     edges = np.diff(np.concatenate([[False], above, [False]]).astype(np.int8))
-    starts, ends = np.flatnonzero(edges == 1), np.flatnonzero(edges == -1)
+    return _apply_rules(np.flatnonzero(edges == 1), np.flatnonzero(edges == -1), rules)
+
+
+def _apply_rules(starts: np.ndarray, ends: np.ndarray, rules: AlarmRules) -> np.ndarray:
+    """Maximal above runs ``[starts, ends)`` -> alarms: merge short gaps, then drop short alarms."""
     if len(starts) and rules.merge_gap > 0:
         keep = np.concatenate([[True], starts[1:] - ends[:-1] > rules.merge_gap])
         starts = starts[keep]
         ends = ends[np.concatenate([keep[1:], [True]])]
     runs = np.stack([starts, ends], axis=1) if len(starts) else np.zeros((0, 2), dtype=np.int64)
     return runs[runs[:, 1] - runs[:, 0] >= rules.min_frames]
+
+
+def _constant_runs(scores: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+    """Run-length form of a frame score array: the value of each run of equal scores and the
+    frame bounds ``[0, e_1, ..., n]`` (frame scores repeat each segment's score, so this is
+    ~segment_frames times shorter)."""
+    cut = np.flatnonzero(np.diff(scores) != 0) + 1
+    return scores[np.concatenate([[0], cut])] if len(scores) else scores, np.concatenate([[0], cut, [len(scores)]])
+
+
+def _count_alarms(values: np.ndarray, bounds: np.ndarray, threshold: float, rules: AlarmRules) -> int:
+    """``len(alarm_runs(frames >= threshold, rules))`` on the run-length form."""
+    edges = np.diff(np.concatenate([[False], values >= threshold, [False]]).astype(np.int8))
+    return len(_apply_rules(bounds[np.flatnonzero(edges == 1)], bounds[np.flatnonzero(edges == -1)], rules))
 
 
 @dataclass
@@ -92,36 +111,43 @@ def budget_threshold(normal_scores: list[np.ndarray], fps: float, budget: float,
     if not normal_scores or not sum(len(s) for s in normal_scores):
         raise WsadError("a budget threshold needs held-out normal training videos")
     candidates = np.unique(np.concatenate(normal_scores))[::-1]   # high to low
+    runs = [_constant_runs(np.asarray(x)) for x in normal_scores]
+    hours = sum(len(x) for x in normal_scores) / fps / 3600.0
     chosen = float(np.nextafter(candidates[0], np.inf))            # no alarm at all
     for t in candidates:
-        if alarms_per_hour(normal_scores, float(t), fps, rules) > budget:
+        if sum(_count_alarms(v, b, float(t), rules) for v, b in runs) / hours > budget:
             break
         chosen = float(t)
     return chosen
 
 
-def event_metrics(videos, events: dict[str, np.ndarray], threshold: float, fps: float,
-                  rules: AlarmRules = AlarmRules()) -> tuple[dict[str, float], list[dict]]:
-    """The ``alarm/*`` metrics of test ``videos`` (:class:`~wsad.evaluate.metrics.VideoScores`)
-    at ``threshold``, and one row per camera (false alarms per hour, events caught).
-
-    ``events``: ``{video: [E, 2]}`` half-open frame intervals; anomalous videos without
-    events take no part in recall or delay, and their alarms are not counted as false."""
-    caught, delays, false, frames, per_cam = [], [], 0, 0, {}
-    tp = fp = fn = 0
+def _timelines(videos, events: dict[str, np.ndarray]) -> list[tuple]:
+    """(camera, frame scores, frame truth, events) of the videos that take part in event metrics:
+    anomalous videos without events take no part in recall or delay, and their alarms are not
+    counted as false."""
+    out = []
     for v in videos:
         if v.label == 1 and v.frame_labels is None:
             continue
         scores = v.frame_scores()
+        truth = v.frame_labels.astype(bool) if v.frame_labels is not None else np.zeros(len(scores), bool)
+        out.append((v.group, scores, truth, events.get(v.video, np.zeros((0, 2)))))
+    return out
+
+
+def _at_threshold(timelines: list[tuple], threshold: float, fps: float,
+                  rules: AlarmRules) -> tuple[dict[str, float], list[dict]]:
+    caught, delays, false, frames, per_cam = [], [], 0, 0, {}
+    tp = fp = fn = 0
+    for group, scores, truth, ev in timelines:
         above = scores >= threshold
-        m = match_events(alarm_runs(above, rules), events.get(v.video, np.zeros((0, 2))))
+        m = match_events(alarm_runs(above, rules), ev)
         caught += m.caught.tolist()
         delays += m.delay_frames[m.caught].tolist()
         false += m.false_alarms
         frames += len(scores)
-        truth = v.frame_labels.astype(bool) if v.frame_labels is not None else np.zeros(len(scores), bool)
         tp, fp, fn = tp + int((above & truth).sum()), fp + int((above & ~truth).sum()), fn + int((~above & truth).sum())
-        row = per_cam.setdefault(v.group, {"group": v.group, "hours": 0.0, "false_alarms": 0, "events": 0, "caught": 0})
+        row = per_cam.setdefault(group, {"group": group, "hours": 0.0, "false_alarms": 0, "events": 0, "caught": 0})
         row["hours"] += len(scores) / fps / 3600.0
         row["false_alarms"] += m.false_alarms
         row["events"] += len(m.caught)
@@ -136,3 +162,34 @@ def event_metrics(videos, events: dict[str, np.ndarray], threshold: float, fps: 
     rows = [{**r, "false_per_hour": r["false_alarms"] / r["hours"] if r["hours"] else float("nan")}
             for r in per_cam.values()]
     return out, rows
+
+
+def event_metrics(videos, events: dict[str, np.ndarray], threshold: float, fps: float,
+                  rules: AlarmRules = AlarmRules()) -> tuple[dict[str, float], list[dict]]:
+    """The ``alarm/*`` metrics of test ``videos`` (:class:`~wsad.evaluate.metrics.VideoScores`)
+    at ``threshold``, and one row per camera (false alarms per hour, events caught).
+
+    ``events``: ``{video: [E, 2]}`` half-open frame intervals; anomalous videos without
+    events take no part in recall or delay, and their alarms are not counted as false."""
+    return _at_threshold(_timelines(videos, events), threshold, fps, rules)
+
+
+def event_tradeoff(videos, events: dict[str, np.ndarray], fps: float, rules: AlarmRules = AlarmRules(),
+                   points: int = 240, extra=()) -> pd.DataFrame:
+    """Event miss rate against false alarms per hour over thresholds (``points`` quantiles of the
+    distinct test scores, the ``extra`` thresholds, and one above the highest score): the
+    event-level side of the DET curve.
+    Columns: threshold, event_miss, false_per_hour."""
+    tl = _timelines(videos, events)
+    distinct = np.unique(np.concatenate([t[1] for t in tl])) if tl else np.zeros(0)
+    if not len(distinct):
+        return pd.DataFrame(columns=["threshold", "event_miss", "false_per_hour"])
+    # denser towards the top scores, where the few-alarm operating points are
+    levels = np.concatenate([np.linspace(0, 1, points // 2), 1 - np.geomspace(1e-5, 0.5, points - points // 2)])
+    picks = np.unique(np.quantile(distinct, levels, method="nearest"))
+    rows = []
+    for t in np.unique([*picks, *extra, np.nextafter(distinct[-1], np.inf)]):
+        m, _ = _at_threshold(tl, float(t), fps, rules)
+        rows.append({"threshold": float(t), "event_miss": 1.0 - m["alarm/event_recall"],
+                     "false_per_hour": m["alarm/false_per_hour"]})
+    return pd.DataFrame(rows)

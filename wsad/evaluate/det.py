@@ -7,6 +7,10 @@ import numpy as np
 
 from ..errors import WsadError
 
+#: A run's DET points (artifact paths): frames at every distinct score, events on a threshold grid.
+DET_FRAMES = "scores/det_frames.csv"
+DET_EVENTS = "scores/det_events.csv"
+
 
 def det_points(scores, labels) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     """False-alarm rate, miss rate and threshold at every distinct score (a frame is called

@@ -26,8 +26,12 @@ from ..errors import WsadError
 from ..store.format import SEGMENT_FRAMES, FeatureStore, segments_to_frames
 
 METRICS = ("frame_auc", "frame_ap", "anomalous_video_auc", "false_alarm_rate", "video_auc")
-#: Everything a report aggregates: the metrics above and the video decision at ``video_threshold``.
-REPORTED = METRICS + ("video_threshold", "video_accuracy", "video_balanced_accuracy")
+#: The operating point at the false-alarm budget (see :mod:`wsad.evaluate.alarms`).
+ALARM_METRICS = ("alarm/event_recall", "alarm/false_per_hour", "alarm/delay_s", "alarm/frame_precision",
+                 "alarm/frame_recall", "alarm/threshold")
+#: Everything a report aggregates: the metrics above, the video decision at ``video_threshold``
+#: and the operating point (and, when runs log them, the same per transfer store).
+REPORTED = METRICS + ("video_threshold", "video_accuracy", "video_balanced_accuracy") + ALARM_METRICS
 ALARM_THRESHOLD = 0.5
 
 

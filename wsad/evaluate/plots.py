@@ -94,3 +94,71 @@ def stream_plot(store, videos: list[str], dims: int = 3):
     axes[0, 0].legend(fontsize=7, loc="upper right")
     fig.tight_layout()
     return fig
+
+
+_PROBIT_TICKS = (0.001, 0.01, 0.05, 0.2, 0.5, 0.8, 0.95, 0.99)
+
+
+def _probit(p) -> np.ndarray:
+    from scipy.stats import norm
+
+    return norm.ppf(np.clip(np.asarray(p, dtype=np.float64), 5e-4, 1 - 5e-4))
+
+
+def _probit_axis(ax, which: str) -> None:
+    ticks = [_probit(t) for t in _PROBIT_TICKS]
+    labels = [f"{100 * t:g}%" for t in _PROBIT_TICKS]
+    (ax.set_xticks if which == "x" else ax.set_yticks)(ticks, labels)
+    (ax.set_xlim if which == "x" else ax.set_ylim)(_probit(5e-4) - 0.1, _probit(1 - 5e-4) + 0.1)
+
+
+def event_front(events):
+    """The event points no other threshold beats on both axes (fewer false alarms per hour
+    *and* fewer events missed), by false alarms per hour. The rate is not monotone in the
+    threshold (low thresholds merge alarms), so the raw points zigzag."""
+    ev = events.dropna().sort_values(["false_per_hour", "event_miss"])
+    keep = ev["event_miss"].to_numpy() < np.minimum.accumulate(
+        np.concatenate([[np.inf], ev["event_miss"].to_numpy()[:-1]]))
+    return ev[keep]
+
+
+def det_plot(curves: dict, path: Path, title: str = "") -> Path:
+    """The detection error trade-off (Martin et al., Eurospeech 1997) on normal-deviate axes.
+
+    ``curves``: name -> (frame points with columns fpr, fnr, threshold; event points with columns
+    threshold, event_miss, false_per_hour; the budget threshold or None). Left: frames, miss
+    probability against false-alarm probability. Right: events, the share of events no alarm
+    overlaps against false alarms per hour of test footage (symmetric log axis). The budget
+    threshold is marked on both."""
+    sns.set_theme(style="whitegrid")
+    fig, (left, right) = plt.subplots(1, 2, figsize=(10, 4.3))
+    palette = sns.color_palette("tab10", max(1, len(curves)))
+    for (name, (frames, events, threshold)), col in zip(curves.items(), palette):
+        left.plot(_probit(frames["fpr"]), _probit(frames["fnr"]), lw=1.5, color=col, label=name)
+        if len(events):
+            ev = event_front(events)
+            right.plot(ev["false_per_hour"], _probit(ev["event_miss"]), lw=1.5, color=col,
+                       drawstyle="steps-post", label=name)
+        if threshold is None:
+            continue
+        at = frames[frames["threshold"] >= threshold]
+        fpr, fnr = (at["fpr"].iloc[0], at["fnr"].iloc[0]) if len(at) else (0.0, 1.0)
+        left.plot(_probit(fpr), _probit(fnr), "o", color=col, ms=7, mec="k")
+        hit = events[np.isclose(events["threshold"], threshold)] if len(events) else events
+        if len(hit):
+            right.plot(hit["false_per_hour"].iloc[0], _probit(hit["event_miss"].iloc[0]), "o",
+                       color=col, ms=7, mec="k")
+    left.plot([], [], "o", color="0.6", mec="k", label="budget threshold")
+    _probit_axis(left, "x")
+    _probit_axis(left, "y")
+    left.set(xlabel="false-alarm probability (normal frames)", ylabel="miss probability (anomalous frames)",
+             title="frames")
+    right.set_xscale("symlog", linthresh=0.1)
+    _probit_axis(right, "y")
+    right.set(xlabel="false alarms per hour of test footage", ylabel="events missed",
+              title="events (fewest missed at each rate)")
+    left.legend(fontsize=7, loc="lower left")
+    if title:
+        fig.suptitle(title, fontsize=10)
+    fig.tight_layout()
+    return save_figure(fig, path, 110)

@@ -11,7 +11,8 @@ import numpy as np
 import pandas as pd
 import seaborn as sns
 
-from ..evaluate.plots import roc_plot, save_figure
+from ..evaluate.det import DET_EVENTS, DET_FRAMES
+from ..evaluate.plots import det_plot, roc_plot, save_figure
 
 
 def metric_plot(rep, metric: str, path: Path) -> Path:
@@ -39,12 +40,29 @@ def _one_run_per_variant(rep) -> dict[str, str]:
     return out
 
 
-def _scores(client, run_id: str, tmp: Path) -> pd.DataFrame | None:
+def _artifact(client, run_id: str, path: str, tmp: Path) -> pd.DataFrame | None:
+    """A table artifact of a run (parquet or CSV), None when the run has none."""
     try:
-        p = client.download_artifacts(run_id, "scores/test_scores.parquet", str(tmp / run_id))
+        p = client.download_artifacts(run_id, path, str(tmp / run_id))
     except Exception:  # noqa: BLE001 - a run without the artifact is skipped
         return None
-    return pd.read_parquet(p)
+    return pd.read_parquet(p) if path.endswith(".parquet") else pd.read_csv(p)
+
+
+def det_overlay(rep, client, tmp: Path, path: Path) -> Path | None:
+    """The DET curves of one run per variant, each with its budget threshold marked."""
+    curves = {}
+    for v, run_id in _one_run_per_variant(rep).items():
+        frames = _artifact(client, run_id, DET_FRAMES, tmp)
+        events = _artifact(client, run_id, DET_EVENTS, tmp)
+        if frames is None or events is None:
+            continue
+        row = rep.runs[rep.runs.run_id == run_id].iloc[0]
+        threshold = row.get("metrics.alarm/threshold")
+        curves[v] = (frames, events, None if threshold is None or threshold != threshold else float(threshold))
+    if not curves:
+        return None
+    return det_plot(curves, path, title="detection error trade-off (one run per variant; dots: budget thresholds)")
 
 
 def learning_curves(rep, client, path: Path, metric: str) -> Path:
@@ -111,7 +129,7 @@ def all_plots(rep, out: Path, tracking_uri: str | None, headline: str) -> dict[s
     tmp = Path(tempfile.mkdtemp(prefix="wsad-report-"))
     scores = {}
     for v, run_id in _one_run_per_variant(rep).items():
-        df = _scores(client, run_id, tmp)
+        df = _artifact(client, run_id, "scores/test_scores.parquet", tmp)
         if df is not None:
             scores[v] = df
     if scores:
@@ -119,5 +137,8 @@ def all_plots(rep, out: Path, tracking_uri: str | None, headline: str) -> dict[s
                   for v, d in scores.items()}
         paths["roc"] = roc_plot(curves, out / "roc_overlay.png", title="frame-level ROC (one run per variant)")
         paths["timelines"] = timelines(scores, out / "timelines.png")
+    det = det_overlay(rep, client, tmp, out / "det_overlay.png")
+    if det is not None:
+        paths["det"] = det
     paths["learning_curves"] = learning_curves(rep, client, out / "learning_curves.png", headline)
     return paths

@@ -40,6 +40,7 @@ def build_report(runs: pd.DataFrame, by: list[str] | None = None, baseline: str 
     and pair every variant with ``baseline`` (a variant label, or k=v pairs;
     default: a variant whose values look like the unchanged recipe, else the first)."""
     by = varying_params(runs) if by is None else list(by)
+    metrics = tuple(metrics) + transfer_columns(runs, metrics)
     for key in by:
         if f"params.{key}" not in runs.columns:
             raise WsadError(f"--by {key}: no run has this param; varying ones: "
@@ -80,6 +81,13 @@ def build_report(runs: pd.DataFrame, by: list[str] | None = None, baseline: str 
     if not rows:
         raise WsadError(f"the runs log none of the metrics {list(metrics)}")
     return Report(pd.DataFrame(rows), runs, by, base, alpha, int(dup.sum()))
+
+
+def transfer_columns(runs: pd.DataFrame, metrics: tuple[str, ...]) -> tuple[str, ...]:
+    """``transfer/<store>/<metric>`` columns of ``runs`` for the ``metrics`` asked for, by store."""
+    found = [c.removeprefix("metrics.") for c in runs.columns if c.startswith("metrics.transfer/")]
+    return tuple(sorted((m for m in found if m.split("/", 2)[-1] in metrics),
+                        key=lambda m: (m.split("/")[1], metrics.index(m.split("/", 2)[-1]))))
 
 
 def _baseline_rank(label: str) -> tuple:

@@ -47,8 +47,10 @@ class Signatures:
         d = int(cfg.dim)
 
         def draw(kind: str, name: str) -> np.ndarray:
-            return np.random.default_rng([int(cfg.seed), 7, zlib.crc32(f"{kind}:{name}".encode())]
-                                         ).standard_normal(d)
+            parts = [7, zlib.crc32(f"{kind}:{name}".encode())]
+            # the scene's look belongs to the site; what an event looks like does not
+            seed = site_seed(cfg, *parts) if kind == "context" else [int(cfg.seed), *parts]
+            return np.random.default_rng(seed).standard_normal(d)
 
         def unit(kind: str, name: str) -> np.ndarray:
             u = draw(kind, name)
@@ -57,6 +59,13 @@ class Signatures:
         context = {k: float(cfg.context_scale) * draw("context", k) for k in cfg.cameras}
         event = {t: unit("event", t) for t in cfg.events.types}
         return Signatures(context=context, event=event, busy=unit("busy", "busy"))
+
+
+def site_seed(cfg: DictConfig, *parts: int) -> list[int]:
+    """The seed of something that belongs to a site (camera placement, backgrounds, footage):
+    site 1 keeps the seeds of a recipe without ``site``; another site draws them anew."""
+    site = int(cfg.get("site", 1))
+    return [int(cfg.seed), *parts] if site == 1 else [int(cfg.seed), *parts, 1_000_003 * site]
 
 
 def _lognormal_int(rng, spec, size=None) -> np.ndarray:
@@ -138,13 +147,14 @@ def _video(cfg: DictConfig, sig: Signatures, ctx: str, cam_vec: np.ndarray, anom
 
 def _plan(cfg: DictConfig) -> list[dict]:
     """The manifest rows in order (grouped by camera), with the true labels."""
-    rng = np.random.default_rng([int(cfg.seed), 11])
+    rng = np.random.default_rng(site_seed(cfg, 11))
+    site = int(cfg.get("site", 1))
     rows = []
     for ctx, counts in cfg.cameras.items():
         can_be_anomalous = any(ctx in spec.get("anomalous_in", []) for spec in cfg.events.types.values())
         for split in ("train", "test"):
             for i in range(int(counts[split])):
-                cam = f"{ctx}_{split}{i + 1:02d}"
+                cam = f"{ctx}_{split}{i + 1:02d}" if site == 1 else f"site{site}_{ctx}_{split}{i + 1:02d}"
                 n = int(cfg.videos_per_camera[split])
                 n_anom = int(round(float(cfg.anomalous_share) * n)) if can_be_anomalous else 0
                 flags = np.zeros(n, dtype=bool)
@@ -166,14 +176,14 @@ def generate_store(cfg: DictConfig, out: str | Path, progress: bool = True) -> P
     plan = _plan(cfg)
     cam_vecs: dict[str, np.ndarray] = {}
     manifest, events = [], []
-    noise_rng = np.random.default_rng([int(cfg.seed), 13])
+    noise_rng = np.random.default_rng(site_seed(cfg, 13))
     with new_store_dir(out, "out=", "wsad-synth") as tmp:
         for k, row in enumerate(tqdm(plan, desc=f"synth {cfg.name}", unit="video",
                                      disable=not progress)):
             if row["group"] not in cam_vecs:
                 cam_vecs[row["group"]] = np.random.default_rng(
-                    [int(cfg.seed), 17, len(cam_vecs)]).standard_normal(int(cfg.dim))
-            rng = np.random.default_rng([int(cfg.seed), 23, k])
+                    site_seed(cfg, 17, len(cam_vecs))).standard_normal(int(cfg.dim))
+            rng = np.random.default_rng(site_seed(cfg, 23, k))
             views, frames, spans = _video(cfg, sig, row["context"], cam_vecs[row["group"]],
                                           row["anomalous"], rng)
             arr = views[0] if int(cfg.crops) == 1 else views

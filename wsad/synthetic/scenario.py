@@ -4,11 +4,14 @@ from __future__ import annotations
 from pathlib import Path
 
 import yaml
-from omegaconf import DictConfig, OmegaConf
+from omegaconf import DictConfig, OmegaConf, open_dict
 from omegaconf.errors import OmegaConfBaseException
 
 from ..errors import WsadError
 from ..resources import SCENARIO_DIR
+
+#: Keys a recipe may leave out (their defaults), which an override can still set.
+OPTIONAL = {"fps": 25, "site": 1}
 
 
 def scenario_names() -> list[str]:
@@ -36,6 +39,9 @@ def load_scenario(name: str, overrides: list[str] | None = None) -> DictConfig:
         if "=" not in item:
             raise WsadError(f"override {item!r} is not key=value")
         key, value = item.split("=", 1)
+        if key in OPTIONAL and key not in cfg:
+            with open_dict(cfg):
+                cfg[key] = OPTIONAL[key]
         if OmegaConf.select(cfg, key, default="__absent__") == "__absent__":
             top = ", ".join(sorted(cfg.keys()))
             raise WsadError(f"scenario has no key {key!r}; top-level keys: {top}")
@@ -54,6 +60,8 @@ def _validate(cfg: DictConfig) -> None:
 
     need(int(cfg.dim) >= 2, "dim must be at least 2")
     need(0 < float(cfg.get("fps", 25)) < 10_000, "fps must be a positive number of frames per second")
+    need(isinstance(cfg.get("site", 1), int) and int(cfg.get("site", 1)) >= 1,
+         "site must be a whole number >= 1 (1: the first site; others redraw cameras and backgrounds)")
     need(str(cfg.dtype) in ("float16", "float32"), "dtype must be float16 or float32")
     need(int(cfg.crops) >= 1, "crops must be >= 1")
     need(0.0 <= float(cfg.rho) < 1.0, "rho must lie in [0, 1)")

@@ -7,6 +7,7 @@ from .. import tracking
 from ..checkpoint import load_checkpoint
 from ..errors import WsadError
 from .loop import RunResult, train_one_stage
+from .operating import transfer_stores
 from .resume import find_checkpoint
 from .self_training import train_two_stages
 from .setup import apply_ablation, seed_everything
@@ -24,6 +25,7 @@ def train(cfg: DictConfig, overrides: list[str] | None = None) -> RunResult:
     else:
         apply_ablation(cfg)
     seed_everything(int(cfg.seed), cfg.trainer.threads)
+    transfer_stores(cfg)  # a wrong transfer store fails now, not after the training
     if cfg.get("self_training"):
         return train_two_stages(cfg, overrides, state)
     return train_one_stage(cfg, overrides, state)

@@ -11,7 +11,6 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
-import pandas as pd
 from omegaconf import DictConfig, open_dict
 from tqdm.auto import tqdm
 
@@ -19,12 +18,10 @@ from .. import tracking
 from ..checkpoint import save_torch
 from ..data.scoring import score_videos
 from ..evaluate import grouped_bootstrap, roc_auc, video_scores
-from ..evaluate.alarms import AlarmRules, budget_threshold, event_metrics
 from ..evaluate.decision import choose_video_threshold, video_decision
-from ..files import atomic_path
 from ..store import store_fingerprint
-from ..store.format import segments_to_frames
 from .export import export, quiet_metrics
+from .operating import alarm_metrics, transfer_metrics, transfer_stores
 from .progress import Progress
 from .resume import GracefulStop, TrainingInterrupted
 from .selection import chooses_epochs, pick_epoch, refit_config, too_small
@@ -155,8 +152,11 @@ def final_metrics(cfg, s: Setup, prog: Progress) -> tuple[dict, list]:
     if int(cfg.trainer.bootstrap) > 0 and "frame_auc" in final:
         final.update(grouped_bootstrap(test, int(cfg.trainer.bootstrap), seed=int(cfg.seed),
                                        by=cfg.trainer.bootstrap_by, interval=cfg.trainer.get("interval", "clustered")))
-    final.update(_video_decision(s, test))
-    final.update(alarm_metrics(cfg, s, test))
+    held = score_videos(s.model, s.store, s.val_videos or s.fit_videos, s.std, s.bags.chunks)
+    final.update(_video_decision(s, held, test))
+    alarms, threshold = alarm_metrics(cfg, s, held, test)
+    final.update(alarms)
+    final.update(transfer_metrics(cfg, s, transfer_stores(cfg), threshold))
     final["selected_epoch"] = prog.best_epoch
     selected = prog.history[prog.best_epoch - 1]
     if "weak_val_video_auc" in selected:
@@ -177,13 +177,11 @@ def finish(cfg, s: Setup, prog: Progress, run, saved_cfg: DictConfig | None = No
     return RunResult(final, prog.history, s.out_dir, run.run_id if run else None, objective)
 
 
-def _video_decision(s: Setup, test) -> dict:
-    """``video_threshold`` chosen on the weak-validation videos (the fit videos when
-    none are held out), and the test split's video accuracy at it. No test label
+def _video_decision(s: Setup, held: dict, test) -> dict:
+    """``video_threshold`` chosen on the ``held`` scores of the weak-validation videos (the fit
+    videos when none are held out), and the test split's video accuracy at it. No test label
     takes part in the choice."""
-    held = s.val_videos or s.fit_videos
-    scores = score_videos(s.model, s.store, held, s.std, s.bags.chunks)
-    threshold = choose_video_threshold([x.max() for x in scores.values()], [s.store.label(v) for v in held])
+    threshold = choose_video_threshold([x.max() for x in held.values()], [s.store.label(v) for v in held])
     return {"video_threshold": threshold, **video_decision(test, threshold)}
 
 
@@ -210,35 +208,6 @@ def choose_epochs(cfg: DictConfig) -> tuple[int, float, list[float], str | None]
     mean = list(np.mean(np.array(curves), axis=0))
     epochs, value = pick_epoch(mean, int(cfg.trainer.get("select_smooth", 1)), int(cfg.trainer.get("min_epoch", 1)))
     return epochs, value, [float(x) for x in mean], small
-
-
-def alarm_metrics(cfg, s: Setup, test) -> dict:
-    """``alarm/*`` at the threshold that keeps the held-out normal *training* videos within
-    ``evaluate.budget`` alarms per camera-hour (no test label chooses it); the per-camera
-    table goes to ``scores/alarms_per_camera.csv``. Skipped, with one line, when the store
-    has no fps or no normal video is held out."""
-    ev = cfg.get("evaluate") or {}
-    if s.store.fps is None:
-        warnings.warn("alarm metrics skipped: store.json has no fps (set it with wsad-index --fps or "
-                      "the store.json key \"fps\")", stacklevel=2)
-        return {}
-    normal = [v for v in s.val_videos if s.store.label(v) == 0]
-    if not normal:
-        warnings.warn("alarm metrics skipped: no normal training video is held out for weak validation",
-                      stacklevel=2)
-        return {}
-    fps = s.store.fps
-    rules = AlarmRules(max(1, round(float(ev.get("min_alarm_s", 0.0)) * fps)),
-                       round(float(ev.get("merge_gap_s", 0.0)) * fps))
-    held = score_videos(s.model, s.store, normal, s.std, s.bags.chunks)
-    frames = [segments_to_frames(x, s.store.frames(v), s.store.segment_frames) for v, x in held.items()]
-    threshold = budget_threshold(frames, fps, float(ev.get("budget", 1.0)), rules)
-    events = {v: g[["start", "end"]].to_numpy() for v, g in s.store.events.groupby("video")}
-    metrics, rows = event_metrics(test, events, threshold, fps, rules)
-    (s.out_dir / "scores").mkdir(parents=True, exist_ok=True)
-    with atomic_path(s.out_dir / "scores" / "alarms_per_camera.csv") as tmp:
-        pd.DataFrame(rows).to_csv(tmp, index=False)
-    return metrics
 
 
 def start_run(cfg: DictConfig, overrides, s: Setup, resume_id: str | None = None):
