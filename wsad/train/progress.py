@@ -9,7 +9,7 @@ from dataclasses import dataclass, field
 from omegaconf import DictConfig, OmegaConf
 
 from .resume import rng_state, set_rng_state
-from .selection import smoothed
+from .selection import pick_epoch
 from .setup import Setup
 
 
@@ -51,15 +51,13 @@ class Progress:
         ``select_smooth`` epochs, from ``min_epoch`` on, ties to the later epoch;
         ``last``: every epoch replaces the one before)."""
         self.history.append({"epoch": epoch, **row})
-        if trainer.select == "weak_val":
-            curve = [r["weak_val_video_auc"] for r in self.history]
-            chosen = smoothed(curve, int(trainer.get("select_smooth", 1)))[-1]
-            if epoch < int(trainer.get("min_epoch", 1)):
-                chosen = -math.inf
+        if trainer.select == "weak_val":   # the same rule as the epoch-count choice before a refit
+            best, value = pick_epoch([r["weak_val_video_auc"] for r in self.history],
+                                     int(trainer.get("select_smooth", 1)), int(trainer.get("min_epoch", 1)))
         else:
-            chosen = epoch
-        if chosen >= self.best_value and chosen > -math.inf:
-            self.best_value = chosen
+            best, value = epoch, epoch
+        if best == epoch:
+            self.best_value = value
             self.best_state = {n: v.clone() for n, v in s.model.state_dict().items()}
             self.best_epoch = epoch
         self.epoch, self.batch = epoch + 1, 0

@@ -80,7 +80,6 @@ def refit_config(cfg: DictConfig, epochs: int) -> DictConfig:
     """The config of the final training: all training videos, ``epochs`` epochs, the last epoch kept."""
     out = copy.deepcopy(cfg)
     with open_dict(out):
-        out.trainer.refit_epochs = int(epochs)
         out.trainer.epochs = int(epochs)
         out.trainer.weak_val_share = 0.0
         out.trainer.weak_val_folds = 1
