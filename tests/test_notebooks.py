@@ -19,8 +19,8 @@ from nbclient import NotebookClient
 NOTEBOOKS = sorted((REPO / "notebooks").glob("*.ipynb"))
 
 
-def test_there_are_four_walkthroughs():
-    assert [p.stem[:2] for p in NOTEBOOKS] == ["01", "02", "03", "04"]
+def test_there_are_five_walkthroughs():
+    assert [p.stem[:2] for p in NOTEBOOKS] == ["01", "02", "03", "04", "05"]
 
 
 @pytest.mark.parametrize("path", NOTEBOOKS, ids=lambda p: p.stem)
@@ -61,6 +61,9 @@ def test_notebook_runs_small(path, tmp_path, monkeypatch):
     if path.stem.startswith("04"):
         assert "p-values are Holm-adjusted over the" in text  # the computed conclusion
         assert (tmp_path / "nb_work" / "04" / "order_effect.png").exists()
+    if path.stem.startswith("05"):
+        assert "at the warehouse-1 threshold" in text and "| warehouse 2 | topk | 5.000 |" in text
+        assert (tmp_path / "nb_work" / "05" / "operating_points.png").exists()
     if path.stem.startswith("03"):
         assert "(exit 2)" in text and "holds NaN" in text and "wsad-score:" in text
 

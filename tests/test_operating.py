@@ -11,7 +11,7 @@ from omegaconf import OmegaConf
 from wsad.config import compose_config
 from wsad.errors import WsadError
 from wsad.synthetic import Signatures, load_scenario
-from wsad.train import train
+from wsad.train import budget_table, train
 
 COMMON = ["recipe=topk", "trainer.epochs=3", "trainer.progress=false", "tracking.enabled=false",
           "trainer.bootstrap=0"]
@@ -46,6 +46,12 @@ def test_run_writes_det_points_equal_to_scikit_learn(small_store, tmp_path):
     assert events.sort_values("threshold").event_miss.iloc[0] == 0.0
     assert (tmp_path / "plots" / "det.png").stat().st_size > 10_000
     assert r.metrics["alarm/normal_hours"] > 0
+    # other budgets after the fact, from the exported scores: the run's own budget gives its metrics
+    table = budget_table(tmp_path, [1.0, 50.0, 500.0])
+    own = table.iloc[0]
+    for m in ("threshold", "event_recall", "false_per_hour", "frame_precision", "frame_recall"):
+        assert own[m] == pytest.approx(r.metrics[f"alarm/{m}"], nan_ok=True), m
+    assert table.threshold.is_monotonic_decreasing and table.event_recall.iloc[-1] >= own.event_recall
 
 
 def test_transfer_to_itself_repeats_the_run_and_to_a_second_site_differs(small_store, second_site, tmp_path):
@@ -62,6 +68,11 @@ def test_transfer_to_itself_repeats_the_run_and_to_a_second_site_differs(small_s
     table = pd.read_csv(tmp_path / "scores" / "transfer.csv")
     assert list(table.store) == [name, "site2"]
     assert table.set_index("store").loc["site2", "frame_auc"] == pytest.approx(other)
+    at = budget_table(tmp_path, [1.0], on="site2").iloc[0]
+    assert at.event_recall == pytest.approx(r.metrics["transfer/site2/alarm/event_recall"], nan_ok=True)
+    assert at.false_per_hour == pytest.approx(r.metrics["transfer/site2/alarm/false_per_hour"])
+    with pytest.raises(WsadError, match="no transfer store 'elsewhere'; it has: "):
+        budget_table(tmp_path, [1.0], on="elsewhere")
 
 
 def test_transfer_store_of_another_dim_fails_before_training(small_store, tmp_path):

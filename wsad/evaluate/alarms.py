@@ -135,8 +135,24 @@ def _timelines(videos, events: dict[str, np.ndarray]) -> list[tuple]:
     return out
 
 
-def _at_threshold(timelines: list[tuple], threshold: float, fps: float,
-                  rules: AlarmRules) -> tuple[dict[str, float], list[dict]]:
+def timelines_from_table(table: pd.DataFrame, events: dict[str, np.ndarray]) -> list[tuple]:
+    """The timelines of a frame table (columns video, frame, score, label, group; label -1: an
+    anomalous video without events, left out like in :func:`event_metrics`)."""
+    out = []
+    for video, g in table.groupby("video", sort=False):
+        g = g.sort_values("frame")
+        label = g["label"].to_numpy()
+        if (label < 0).any():
+            continue
+        out.append((g["group"].iloc[0], g["score"].to_numpy(), label.astype(bool),
+                    events.get(video, np.zeros((0, 2)))))
+    return out
+
+
+def metrics_at(timelines: list[tuple], threshold: float, fps: float,
+               rules: AlarmRules) -> tuple[dict[str, float], list[dict]]:
+    """The ``alarm/*`` metrics and per-camera rows of ``timelines`` (camera, frame scores,
+    frame truth, events) at ``threshold``."""
     caught, delays, false, frames, per_cam = [], [], 0, 0, {}
     tp = fp = fn = 0
     for group, scores, truth, ev in timelines:
@@ -171,7 +187,7 @@ def event_metrics(videos, events: dict[str, np.ndarray], threshold: float, fps: 
 
     ``events``: ``{video: [E, 2]}`` half-open frame intervals; anomalous videos without
     events take no part in recall or delay, and their alarms are not counted as false."""
-    return _at_threshold(_timelines(videos, events), threshold, fps, rules)
+    return metrics_at(_timelines(videos, events), threshold, fps, rules)
 
 
 def event_tradeoff(videos, events: dict[str, np.ndarray], fps: float, rules: AlarmRules = AlarmRules(),
@@ -189,7 +205,7 @@ def event_tradeoff(videos, events: dict[str, np.ndarray], fps: float, rules: Ala
     picks = np.unique(np.quantile(distinct, levels, method="nearest"))
     rows = []
     for t in np.unique([*picks, *extra, np.nextafter(distinct[-1], np.inf)]):
-        m, _ = _at_threshold(tl, float(t), fps, rules)
+        m, _ = metrics_at(tl, float(t), fps, rules)
         rows.append({"threshold": float(t), "event_miss": 1.0 - m["alarm/event_recall"],
                      "false_per_hour": m["alarm/false_per_hour"]})
     return pd.DataFrame(rows)

@@ -1,7 +1,16 @@
 """Runs -> tables with intervals and paired tests (:mod:`.tables`), read from
 MLflow and grouped into variants (:mod:`.runs`), and the figures (:mod:`.plots`)."""
 from .runs import label_keys, load_runs, varying_params
-from .tables import Report, build_report, latex_table, markdown_table, paired_tests, t_interval, write_report
+from .tables import (
+    Report,
+    build_report,
+    frame_markdown,
+    latex_table,
+    markdown_table,
+    paired_tests,
+    t_interval,
+    write_report,
+)
 
-__all__ = ["label_keys", "load_runs", "varying_params", "Report", "build_report", "latex_table",
+__all__ = ["label_keys", "load_runs", "varying_params", "Report", "build_report", "frame_markdown", "latex_table",
            "markdown_table", "paired_tests", "t_interval", "write_report"]

@@ -117,6 +117,15 @@ def _p(x: float) -> str:
     return "n/a" if x != x else (f"{x:.3f}" if x >= 0.001 else "<0.001")
 
 
+def frame_markdown(df: pd.DataFrame, digits: int = 3, index: bool = False) -> str:
+    """Any table as a markdown pipe table, numbers to ``digits`` decimals."""
+    df = df.reset_index() if index else df
+    cell = lambda v: _fmt(v, digits) if isinstance(v, float) else str(v)  # noqa: E731
+    lines = ["| " + " | ".join(map(str, df.columns)) + " |", "|" + "---|" * len(df.columns)]
+    lines += ["| " + " | ".join(cell(v) for v in row) + " |" for row in df.itertuples(index=False)]
+    return "\n".join(lines)
+
+
 def markdown_table(rep: Report, metric: str) -> str:
     t = rep.table[rep.table.metric == metric]
     lines = [f"| variant | n | {metric} mean ± sd | 95% CI | Δ vs baseline [95% CI] | p (paired t) "

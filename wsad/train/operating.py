@@ -8,12 +8,19 @@ from pathlib import Path
 
 import numpy as np
 import pandas as pd
-from omegaconf import DictConfig
+from omegaconf import DictConfig, OmegaConf
 
 from ..data.scoring import score_videos
 from ..errors import WsadError
-from ..evaluate import video_scores
-from ..evaluate.alarms import AlarmRules, budget_threshold, event_metrics, event_tradeoff
+from ..evaluate import frame_table, video_scores
+from ..evaluate.alarms import (
+    AlarmRules,
+    budget_threshold,
+    event_metrics,
+    event_tradeoff,
+    metrics_at,
+    timelines_from_table,
+)
 from ..evaluate.det import DET_EVENTS, DET_FRAMES, det_points
 from ..evaluate.plots import det_plot
 from ..files import atomic_path
@@ -21,6 +28,8 @@ from ..store import FeatureStore
 from ..store.format import segments_to_frames
 from .export import quiet_metrics
 from .setup import Setup
+
+HELD_NORMAL = "scores/heldout_normal_scores.parquet"   # frame scores the budget threshold is chosen on
 
 
 def alarm_rules(cfg: DictConfig, fps: float) -> AlarmRules:
@@ -38,6 +47,12 @@ def _write_csv(df: pd.DataFrame, path: Path) -> None:
     path.parent.mkdir(parents=True, exist_ok=True)
     with atomic_path(path) as tmp:
         df.to_csv(tmp, index=False)
+
+
+def _write_parquet(df: pd.DataFrame, path: Path) -> None:
+    path.parent.mkdir(parents=True, exist_ok=True)
+    with atomic_path(path) as tmp:
+        df.to_parquet(tmp, index=False)
 
 
 def alarm_metrics(cfg: DictConfig, s: Setup, held: dict, test) -> tuple[dict, float | None]:
@@ -68,6 +83,7 @@ def alarm_metrics(cfg: DictConfig, s: Setup, held: dict, test) -> tuple[dict, fl
     metrics, rows = event_metrics(test, events, threshold, fps, rules)
     metrics["alarm/normal_hours"] = hours
     _write_csv(pd.DataFrame(rows), s.out_dir / "scores" / "alarms_per_camera.csv")
+    _write_parquet(frame_table(video_scores(s.store, {v: held[v] for v in normal})), s.out_dir / HELD_NORMAL)
     write_det(s.out_dir, test, events, fps, rules, threshold, str(cfg.get("recipe_name", "model")))
     return metrics, threshold
 
@@ -124,6 +140,7 @@ def transfer_metrics(cfg: DictConfig, s: Setup, stores: list[tuple[str, FeatureS
     out, rows = {}, []
     for name, store in stores:
         test = video_scores(store, score_videos(s.model, store, store.videos("test"), s.std, s.bags.chunks))
+        _write_parquet(frame_table(test), s.out_dir / "scores" / "transfer" / f"{name}.parquet")
         metrics = quiet_metrics(test)
         if threshold is not None and store.fps is not None:
             metrics.update(event_metrics(test, _events(store), threshold, store.fps,
@@ -135,3 +152,38 @@ def transfer_metrics(cfg: DictConfig, s: Setup, stores: list[tuple[str, FeatureS
     if rows:
         _write_csv(pd.DataFrame(rows), s.out_dir / "scores" / "transfer.csv")
     return out
+
+
+# --- other budgets after the fact -----------------------------------------------------------
+def budget_table(run_dir: str | Path, budgets, on: str | None = None) -> pd.DataFrame:
+    """The operating point of a finished run at each of ``budgets`` (alarms per camera-hour),
+    from its exported scores, without retraining: the threshold on its held-out normal training
+    videos, and the ``alarm/*`` results on its test split, or with ``on`` a transfer store's
+    name, on that store's test split (at the *training* site's threshold)."""
+    run = Path(run_dir)
+    if not (run / HELD_NORMAL).is_file():
+        raise WsadError(f"{run} has no {HELD_NORMAL}: the run had no fps or no held-out normal video")
+    cfg = OmegaConf.load(run / "config" / "resolved.yaml")
+    train_store = FeatureStore(str(cfg.data.root))
+    if on is None:
+        store, table = train_store, pd.read_parquet(run / "scores" / "test_scores.parquet")
+    else:
+        known = pd.read_csv(run / "scores" / "transfer.csv") if (run / "scores" / "transfer.csv").is_file() else None
+        if known is None or on not in set(known.store):
+            names = ", ".join(known.store) if known is not None else "none"
+            raise WsadError(f"{run} has no transfer store {on!r}; it has: {names}")
+        store = FeatureStore(str(known.set_index("store").loc[on, "path"]))
+        table = pd.read_parquet(run / "scores" / "transfer" / f"{on}.parquet")
+    if store.fps is None:
+        raise WsadError(f"{store.root} has no fps in store.json: alarms per hour need it")
+    held = pd.read_parquet(run / HELD_NORMAL)
+    normal = [g.sort_values("frame")["score"].to_numpy() for _, g in held.groupby("video", sort=False)]
+    timelines = timelines_from_table(table, _events(store))
+    hours = sum(len(x) for x in normal) / train_store.fps / 3600.0
+    rows = []
+    for b in budgets:
+        threshold = budget_threshold(normal, train_store.fps, float(b), alarm_rules(cfg, train_store.fps))
+        m, _ = metrics_at(timelines, threshold, store.fps, alarm_rules(cfg, store.fps))
+        rows.append({"budget": float(b), "normal_hours": hours,
+                     **{k.removeprefix("alarm/"): v for k, v in m.items()}})
+    return pd.DataFrame(rows)
