@@ -3,6 +3,9 @@ PYTHON ?= python3
 VENV ?= .venv
 BIN := $(VENV)/bin
 TORCH_SPEC ?= torch==2.13.0
+# torchvision only as a reference implementation in the tests (its wheel must match TORCH_SPEC;
+# `import torchvision` fails beside the CPU torch, the tests load its model file on its own)
+TORCHVISION_SPEC ?= torchvision==0.28.0
 STAMP := $(VENV)/.installed
 DEMO_DIR ?= demo_out
 
@@ -16,7 +19,8 @@ $(STAMP): pyproject.toml
 	test -x $(BIN)/python || $(PYTHON) -m venv $(VENV)
 	$(BIN)/python -m pip install --quiet --upgrade pip
 	$(BIN)/python -m pip install --quiet "$(TORCH_SPEC)"
-	$(BIN)/python -m pip install --quiet -e ".[dev]"
+	$(BIN)/python -m pip install --quiet "$(TORCHVISION_SPEC)" "$(TORCH_SPEC)"
+	$(BIN)/python -m pip install --quiet -e ".[dev,video]"
 	touch $(STAMP)
 
 # Lint and import order first (ruff, configured in pyproject.toml), then the suite.
