@@ -19,7 +19,7 @@ from pathlib import Path
 from _common import machine, size_arg
 from tqdm.auto import tqdm
 
-SCRIPTS = ["train_floor.py", "cluster_term.py", "evaluation.py", "memory.py", "scaling.py"]
+SCRIPTS = ["train_floor.py", "cluster_term.py", "evaluation.py", "memory.py", "scaling.py", "extract.py"]
 
 # key, goal, "max" (value must be <=) or "min" (>=), what it measures
 GOALS = [
@@ -30,6 +30,9 @@ GOALS = [
     ("memory.peak_anon_rss_gb", 1.5, "max", "peak anonymous RSS, one epoch on the multi-crop store"),
     ("scaling.exponent", 1.1, "max", "epoch time ~ videos^e"),
     ("eval.frames_per_s", None, None, "metrics + intervals, test frames per second"),
+    ("extract.ratio_to_forward", 1.3, "max", "wsad-extract per segment / the backbone's forward alone (r3d_18)"),
+    ("extract.peak_rss_ratio", 1.1, "max", "peak anonymous RSS, 10-minute video / 1-minute video"),
+    ("extract.segments_per_s", None, None, "wsad-extract segments per second (r3d_18, 1 crop, 2 cores)"),
 ]
 
 

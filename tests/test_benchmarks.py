@@ -37,3 +37,6 @@ def test_every_benchmark_runs_at_tiny_size(tmp_path):
     assert 0 < result["cluster_term"]["inertia_ratio"] < 2
     assert "| measure | value | goal | met |" in proc.stdout
     assert result["machine"]["cpus"] >= 1
+    ex = result["extract"]   # the pipeline really extracted the clips the forward-alone figure ran
+    assert ex["segments"] > 0 and ex["rss_segments"]["long"] > ex["rss_segments"]["short"] >= 8
+    assert set(ex["forward_segments_per_s"]) == {"r3d_18", "mc3_18", "r2plus1d_18"}

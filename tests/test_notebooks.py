@@ -66,6 +66,7 @@ def test_notebook_runs_small(path, tmp_path, monkeypatch):
         assert (tmp_path / "nb_work" / "05" / "operating_points.png").exists()
     if path.stem.startswith("03"):
         assert "(exit 2)" in text and "holds NaN" in text and "wsad-score:" in text
+        assert "features mean nothing" in text and "store ready in" in text   # from footage, warned
 
 
 @pytest.mark.slow

@@ -53,7 +53,9 @@ def run_shard(args: argparse.Namespace, shard: tuple[int, int]):
 
     from ..extract.backbones import build_backbone
     from ..extract.folder import Settings, extract_folder
+    from ..extract.pipeline import steady_memory
 
+    steady_memory()
     torch.set_num_threads(args.threads or os.cpu_count() or 1)
     model = build_backbone(args.backbone, args.weights)
     settings = Settings(args.backbone, args.weights, args.crops, args.fps)
