@@ -12,6 +12,7 @@ from typing import Any
 from omegaconf import DictConfig, OmegaConf
 
 from . import __version__
+from .errors import WsadError
 from .resources import source_checkout
 
 #: Params (prefixes) that say where or how a run ran, never what it is: left out of
@@ -21,13 +22,50 @@ BOOKKEEPING = ("seed", "data.root", "data.fingerprint", "tracking.", "trainer.pr
                "choice.sweep", "choice.tracking")
 
 
+class TrackingUnavailable(WsadError):
+    """The tracking server stopped answering (past the MLflow client's own HTTP retries)."""
+
+    exit_code = 75   # EX_TEMPFAIL (sysexits.h): a temporary failure, try again later
+
+
+_DOWN = ("max retries exceeded", "connection refused", "failed to establish a new connection",
+         "connectionerror", "read timed out", "remotedisconnected", "connection aborted",
+         "503", "502", "504")
+
+
+def _tracking_error(err: Exception) -> WsadError | None:
+    """What an MLflow failure means to the user, in one line, or None (not a server problem)."""
+    import mlflow
+
+    text = f"{type(err).__name__}: {err}"
+    low = text.lower()
+    uri = mlflow.get_tracking_uri()
+    user = os.environ.get("MLFLOW_TRACKING_USERNAME")
+    if "401" in low or "unauthorized" in low:
+        who = f"the password of user {user!r}" if user else "a request without credentials"
+        return WsadError(f"the tracking server at {uri} refused {who} (HTTP 401): set MLFLOW_TRACKING_USERNAME "
+                         "and MLFLOW_TRACKING_PASSWORD to an account it knows")
+    if "403" in low or "permission_denied" in low:
+        return WsadError(f"the tracking server at {uri} does not let user {user!r} do this (HTTP 403): ask its "
+                         "admin for EDIT permission on the experiment")
+    if uri.startswith(("http://", "https://")) and any(k in low for k in _DOWN):
+        return TrackingUnavailable(f"the tracking server at {uri} does not answer ({text.splitlines()[0][:160]})")
+    return None
+
+
 def retry(fn: Callable[[], Any], attempts: int = 8, delay: float = 0.25) -> Any:
-    """Call fn, retrying briefly while SQLite reports the database is locked."""
+    """Call fn, retrying briefly while SQLite reports the database is locked; a server that
+    refuses the credentials or stops answering becomes one clear :class:`WsadError`."""
     for i in range(attempts):
         try:
             return fn()
+        except WsadError:
+            raise
         except Exception as err:  # noqa: BLE001 - MLflow wraps the driver's error types
             if "locked" not in str(err).lower() or i == attempts - 1:
+                meaning = _tracking_error(err)
+                if meaning is not None:
+                    raise meaning from None
                 raise
             time.sleep(delay * (2 ** i))
     return None

@@ -77,8 +77,15 @@ def closing_run(run, resume_path: Path):
         tracking.log_state(run, resume_path)
         tracking.finish(run, None, status="KILLED")
         raise
+    except tracking.TrackingUnavailable as err:  # nothing more can be logged: say how to finish
+        raise tracking.TrackingUnavailable(
+            f"{err}; run {run.run_id} stopped with its training state saved in {resume_path}; when the "
+            f"server is back, finish it with trainer.resume={run.run_id}") from None
     except BaseException:
-        tracking.finish(run, None, status="FAILED")
+        try:
+            tracking.finish(run, None, status="FAILED")
+        except tracking.TrackingUnavailable:
+            pass   # the original error matters more than a server that is also away
         raise
 
 
