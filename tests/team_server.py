@@ -10,6 +10,7 @@ import signal
 import socket
 import subprocess
 import sys
+import tempfile
 import time
 import urllib.request
 from pathlib import Path
@@ -34,14 +35,15 @@ def _as_postgres(cmd: list[str]) -> list[str]:
 
 
 class Postgres:
-    """A PostgreSQL cluster in ``folder`` on ``127.0.0.1:port`` with a database ``mlflow``."""
+    """A PostgreSQL cluster in a fresh folder on ``127.0.0.1:port`` with a database ``mlflow``
+    (the folder sits directly in the system's temporary directory, which the ``postgres`` user
+    can reach; a test's own temporary folders are private to it)."""
 
-    def __init__(self, folder: Path):
-        self.folder, self.port = Path(folder), free_port()
-        self.data = self.folder / "data"
+    def __init__(self):
+        self.folder = Path(tempfile.mkdtemp(prefix="wsad-pg-"))
+        self.port, self.data = free_port(), self.folder / "data"
 
     def start(self) -> Postgres:
-        self.folder.mkdir(parents=True, exist_ok=True)
         if os.geteuid() == 0:
             shutil.chown(self.folder, "postgres")
         subprocess.run(_as_postgres([pg_tool("initdb"), "-D", str(self.data), "-U", "postgres", "-A", "trust",
@@ -61,6 +63,7 @@ class Postgres:
     def stop(self) -> None:
         subprocess.run(_as_postgres([pg_tool("pg_ctl"), "-D", str(self.data), "-m", "immediate", "stop"]),
                        capture_output=True)
+        shutil.rmtree(self.folder, ignore_errors=True)
 
 
 class MlflowServer:
