@@ -129,7 +129,7 @@ def child(video: str) -> dict:
 def rss(size: str) -> dict:
     fps = FPS[size]
     # both past the first full batch (8 segments), where the peak is reached
-    minutes = {"short": 1, "long": 10} if size != "tiny" else {"short": 0.6, "long": 1.5}
+    minutes = {"short": 1, "long": 10} if size != "tiny" else {"short": 0.6, "long": 0.8}
     res = {}
     for key, m in minutes.items():
         video = footage(WORK / "extract" / f"{key}_{size}_{fps}fps.mp4", 60 * m, fps)

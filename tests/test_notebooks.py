@@ -44,7 +44,8 @@ def _text(nb) -> str:
     out = []
     for c in nb.cells:
         for o in c.get("outputs", []):
-            out.append(str(o.get("text", "")) + str(o.get("data", {}).get("text/plain", "")))
+            data = o.get("data", {})
+            out.append(str(o.get("text", "")) + str(data.get("text/plain", "")) + str(data.get("text/markdown", "")))
     return "\n".join(out)
 
 

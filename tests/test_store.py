@@ -363,3 +363,27 @@ def test_fps_is_optional_written_by_the_generator_and_by_index(small_store, tmp_
     assert FeatureStore(out).fps == pytest.approx(29.97)
     with pytest.raises(WsadError, match="--fps"):
         build_store(feats, tmp_path / "labels.csv", tmp_path / "indexed2", fps=-1)
+
+
+def test_a_clean_check_is_remembered_until_the_store_changes(small_store, tmp_path, monkeypatch):
+    from wsad.store import check_cache
+
+    monkeypatch.setenv("XDG_CACHE_HOME", str(tmp_path / "cache"))
+    monkeypatch.setattr(check_cache, "_CLEAN", set())
+    root = tmp_path / "s"
+    shutil.copytree(small_store, root)
+    calls = []
+    real = check_cache.check_store
+    monkeypatch.setattr(check_cache, "check_store", lambda r: calls.append(r) or real(r))
+    assert check_cache.errors_of(root) == [] and len(calls) == 1
+    assert check_cache.errors_of(root) == [] and len(calls) == 1          # remembered in the process
+    monkeypatch.setattr(check_cache, "_CLEAN", set())
+    assert check_cache.errors_of(root) == [] and len(calls) == 1          # and on disk, outside the store
+    assert tree_hash(root) == tree_hash(small_store)                      # the store itself untouched
+    man = pd.read_csv(root / "manifest.csv")
+    a = np.load(root / man.file[0])
+    a[0, 0] = np.nan                                                      # re-exported with a NaN
+    np.save(root / man.file[0], a)
+    errors = check_cache.errors_of(root)
+    assert len(calls) == 2 and any("NaN" in str(e) for e in errors)
+    assert check_cache.errors_of(root) and len(calls) == 3                # a broken store is never remembered

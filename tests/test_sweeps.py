@@ -2,6 +2,7 @@
 MLflow server, and the presets."""
 from __future__ import annotations
 
+import os
 import socket
 import sqlite3
 import subprocess
@@ -94,7 +95,8 @@ def mlflow_server(tmp_path):
                              "--backend-store-uri", f"sqlite:///{tmp_path}/server.db",
                              "--artifacts-destination", str(tmp_path / "server_artifacts"),
                              "--workers", "1"],
-                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, cwd=tmp_path)
+                            stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL, cwd=tmp_path,
+                            env={**os.environ, "MLFLOW_SERVER_ENABLE_JOB_EXECUTION": "false"})
     url = f"http://127.0.0.1:{port}"
     deadline = time.time() + 120
     while time.time() < deadline:

@@ -21,12 +21,16 @@ BASE = ["recipe=topk", "trainer.progress=false", "trainer.bootstrap=0"]
 
 @pytest.fixture(scope="module")
 def team_server(tmp_path_factory):
-    pg = Postgres().start()
-    server = MlflowServer(pg.uri, tmp_path_factory.mktemp("team")).start()
-    server.create_user(USER, PASSWORD)
-    yield server
-    server.stop()
-    pg.stop()
+    pg = Postgres()
+    server = MlflowServer("", tmp_path_factory.mktemp("team"))
+    try:
+        pg.start()
+        server.backend = pg.uri
+        server.start().create_user(USER, PASSWORD)
+        yield server
+    finally:   # never leave a server or a cluster behind, whatever failed
+        server.stop()
+        pg.stop()
 
 
 def _env(user: str | None = USER, password: str | None = PASSWORD, **extra) -> dict:
@@ -83,11 +87,7 @@ def _sweep_through_submitit(server, store, tmp_path, runs: int, concurrent: int)
     assert list((tmp_path / "multirun").glob("*/*/.submitit"))
 
 
-def test_sweep_logs_to_postgres_with_a_login(team_server, small_store, tmp_path):
-    _sweep_through_submitit(team_server, small_store, tmp_path, runs=4, concurrent=2)
-
-
-@pytest.mark.slow
+@pytest.mark.slow   # about 3 minutes; make test checks the login, the store and the outage below
 def test_sixteen_runs_four_at_a_time(team_server, small_store, tmp_path):
     _sweep_through_submitit(team_server, small_store, tmp_path, runs=16, concurrent=4)
 
@@ -124,6 +124,7 @@ def _wait_for_epochs(server, experiment: str, runs: int, step: int, proc, timeou
     raise AssertionError(f"{runs} run(s) never reached epoch {step}")
 
 
+@pytest.mark.slow   # about 90 s; make test runs the long outage below
 def test_a_short_outage_mid_sweep_loses_nothing(team_server, small_store, tmp_path):
     exp, epochs = "outage_short", 16
     proc = wsad_train(tmp_path, "-m", f"data.root={small_store}", *BASE, f"trainer.epochs={epochs}",
@@ -145,7 +146,7 @@ def test_a_short_outage_mid_sweep_loses_nothing(team_server, small_store, tmp_pa
 
 
 def test_a_long_outage_stops_the_run_cleanly_and_it_resumes(team_server, small_store, tmp_path):
-    exp, epochs = "outage_long", 30
+    exp, epochs = "outage_long", 16
     args = [f"data.root={small_store}", *BASE, f"trainer.epochs={epochs}", "seed=5",
             f"tracking.uri={team_server.uri}", f"tracking.experiment={exp}"]
     # a short retry budget (MLflow's documented variables) so the client gives up within seconds
@@ -171,7 +172,9 @@ def test_a_long_outage_stops_the_run_cleanly_and_it_resumes(team_server, small_s
     assert whole.returncode == 0, whole.stderr[-3000:]
     resumed = _client(team_server).get_run(run_id)
     reference = _runs(team_server, "outage_reference")[0]
-    assert resumed.info.status == "FINISHED"
+    assert resumed.info.status == "FINISHED" and resumed.info.user_id == USER   # the team's login
+    paths = {a.path for a in _client(team_server).list_artifacts(run_id, "scores")}
+    assert "scores/test_scores.parquet" in paths                                # through the server
     for m in ("frame_auc", "frame_ap", "video_auc", "alarm/threshold", "selected_epoch"):
         assert resumed.data.metrics[m] == reference.data.metrics[m], m   # the same final scores
     steps = sorted({m.step for m in _client(team_server).get_metric_history(run_id, "train_loss")})

@@ -20,7 +20,8 @@ from ..data.standardize import Standardizer
 from ..errors import WsadError
 from ..pooling.modules import Pooling
 from ..registry import build_component
-from ..store import FeatureStore, check_store
+from ..store import FeatureStore
+from ..store.check_cache import errors_of
 from ..terms.base import Term
 
 SELECTIONS = ("last", "weak_val")
@@ -29,11 +30,23 @@ SCHEDULES = (None, "cosine")
 MIN_GROUPS_FOR_GROUP_UNIT = 10
 
 
+def deterministic() -> None:
+    """Deterministic kernels for eager PyTorch. The public ``torch.use_deterministic_algorithms``
+    also imports the compiler's config to set its flag there (1.7 s of a cold start measured here;
+    wsad compiles nothing), so the flag is set directly when this torch has the call."""
+    setter = getattr(torch._C, "_set_deterministic_algorithms", None)
+    if setter is None:
+        torch.use_deterministic_algorithms(True)
+    else:
+        setter(True)
+
+
 def seed_everything(seed: int, threads: int | None) -> None:
     random.seed(seed)
     np.random.seed(seed)
     torch.manual_seed(seed)
-    torch.use_deterministic_algorithms(True)
+    if not torch.are_deterministic_algorithms_enabled():
+        deterministic()
     if threads is None:  # one thread per job when a sweep runs jobs side by side
         threads = 1 if in_multirun() else (os.cpu_count() or 1)
     torch.set_num_threads(max(1, int(threads)))
@@ -144,7 +157,7 @@ def build(cfg: DictConfig) -> Setup:
         if getattr(term, "needs_targets", False) and not getattr(bags, "gives_targets", False):
             raise WsadError(f"objective.{name} needs segment labels, which bags={type(bags).__name__} does not "
                             "give (they come from recipe=self_training's second stage)")
-    errors = [p for p in check_store(cfg.data.root) if p.severity == "error"]
+    errors = errors_of(cfg.data.root)   # the full check, once per store content
     if errors:
         raise WsadError(f"the store {cfg.data.root} has {len(errors)} problem(s), first: {errors[0]}; "
                         f"run wsad-check {cfg.data.root}")
