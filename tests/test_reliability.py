@@ -263,3 +263,20 @@ def test_crafted_checkpoint_is_refused_without_running_code(small_store, tmp_pat
 def test_services_bind_to_loopback():
     out = subprocess.run(["make", "-n", "ui"], cwd=REPO, capture_output=True, text=True)
     assert "--host 127.0.0.1" in out.stdout
+
+
+def test_tracking_failures_are_read_by_their_http_status_only(monkeypatch):
+    # a run id holding "401" is not a refused login; an HTTP 401/403/503 from a server is
+    import mlflow
+
+    from wsad import tracking
+
+    monkeypatch.setattr(mlflow, "get_tracking_uri", lambda: "http://127.0.0.1:5000")
+    read = lambda m: type(tracking._tracking_error(Exception(m))).__name__  # noqa: E731
+    assert read("API request to endpoint /x failed with error code 401 != 200") == "WsadError"
+    assert read("error code 403 != 200") == "WsadError"
+    assert read("503 Server Error: Service Unavailable") == "TrackingUnavailable"
+    assert read("HTTPConnectionPool(host='127.0.0.1'): Max retries exceeded") == "TrackingUnavailable"
+    assert read("RESOURCE_DOES_NOT_EXIST: Run 'ab401cd4019' not found") == "NoneType"
+    monkeypatch.setattr(mlflow, "get_tracking_uri", lambda: "sqlite:///mlruns.db")
+    assert read("error code 401 != 200") == "NoneType"        # no HTTP server, no HTTP status

@@ -3,6 +3,7 @@ flattened params, readable run names."""
 from __future__ import annotations
 
 import os
+import re
 import subprocess
 import time
 from collections.abc import Callable
@@ -29,26 +30,30 @@ class TrackingUnavailable(WsadError):
 
 
 _DOWN = ("max retries exceeded", "connection refused", "failed to establish a new connection",
-         "connectionerror", "read timed out", "remotedisconnected", "connection aborted",
-         "503", "502", "504")
+         "connectionerror", "read timed out", "remotedisconnected", "connection aborted")
 
 
 def _tracking_error(err: Exception) -> WsadError | None:
-    """What an MLflow failure means to the user, in one line, or None (not a server problem)."""
+    """What an MLflow failure means to the user, in one line, or None (not a server problem).
+    Only an HTTP server answers with a status; codes count as whole numbers, so a run id that
+    happens to hold "401" is not read as a refused login."""
     import mlflow
 
+    uri = mlflow.get_tracking_uri()
+    if not uri.startswith(("http://", "https://")):
+        return None
     text = f"{type(err).__name__}: {err}"
     low = text.lower()
-    uri = mlflow.get_tracking_uri()
+    codes = set(re.findall(r"(?<![\w.:])(40[13]|50[234])(?![\w.])", low))
     user = os.environ.get("MLFLOW_TRACKING_USERNAME")
-    if "401" in low or "unauthorized" in low:
+    if "401" in codes or "unauthorized" in low or "not authenticated" in low:
         who = f"the password of user {user!r}" if user else "a request without credentials"
         return WsadError(f"the tracking server at {uri} refused {who} (HTTP 401): set MLFLOW_TRACKING_USERNAME "
                          "and MLFLOW_TRACKING_PASSWORD to an account it knows")
-    if "403" in low or "permission_denied" in low:
+    if "403" in codes or "permission_denied" in low:
         return WsadError(f"the tracking server at {uri} does not let user {user!r} do this (HTTP 403): ask its "
                          "admin for EDIT permission on the experiment")
-    if uri.startswith(("http://", "https://")) and any(k in low for k in _DOWN):
+    if codes & {"502", "503", "504"} or any(k in low for k in _DOWN):
         return TrackingUnavailable(f"the tracking server at {uri} does not answer ({text.splitlines()[0][:160]})")
     return None
 

@@ -121,7 +121,7 @@ def budget_threshold(normal_scores: list[np.ndarray], fps: float, budget: float,
     return chosen
 
 
-def _timelines(videos, events: dict[str, np.ndarray]) -> list[tuple]:
+def timelines(videos, events: dict[str, np.ndarray]) -> list[tuple]:
     """(camera, frame scores, frame truth, events) of the videos that take part in event metrics:
     anomalous videos without events take no part in recall or delay, and their alarms are not
     counted as false."""
@@ -137,7 +137,7 @@ def _timelines(videos, events: dict[str, np.ndarray]) -> list[tuple]:
 
 def timelines_from_table(table: pd.DataFrame, events: dict[str, np.ndarray]) -> list[tuple]:
     """The timelines of a frame table (columns video, frame, score, label, group; label -1: an
-    anomalous video without events, left out like in :func:`event_metrics`)."""
+    anomalous video without events, left out like in :func:`timelines`)."""
     out = []
     for video, g in table.groupby("video", sort=False):
         g = g.sort_values("frame")
@@ -187,17 +187,16 @@ def event_metrics(videos, events: dict[str, np.ndarray], threshold: float, fps: 
 
     ``events``: ``{video: [E, 2]}`` half-open frame intervals; anomalous videos without
     events take no part in recall or delay, and their alarms are not counted as false."""
-    return metrics_at(_timelines(videos, events), threshold, fps, rules)
+    return metrics_at(timelines(videos, events), threshold, fps, rules)
 
 
-def event_tradeoff(videos, events: dict[str, np.ndarray], fps: float, rules: AlarmRules = AlarmRules(),
+def event_tradeoff(timelines: list[tuple], fps: float, rules: AlarmRules = AlarmRules(),
                    points: int = 240, extra=()) -> pd.DataFrame:
     """Event miss rate against false alarms per hour over thresholds (``points`` quantiles of the
     distinct test scores, the ``extra`` thresholds, and one above the highest score): the
-    event-level side of the DET curve.
+    event-level side of the DET curve, on ``timelines`` (:func:`timelines`).
     Columns: threshold, event_miss, false_per_hour."""
-    tl = _timelines(videos, events)
-    distinct = np.unique(np.concatenate([t[1] for t in tl])) if tl else np.zeros(0)
+    distinct = np.unique(np.concatenate([t[1] for t in timelines])) if timelines else np.zeros(0)
     if not len(distinct):
         return pd.DataFrame(columns=["threshold", "event_miss", "false_per_hour"])
     # denser towards the top scores, where the few-alarm operating points are
@@ -205,7 +204,7 @@ def event_tradeoff(videos, events: dict[str, np.ndarray], fps: float, rules: Ala
     picks = np.unique(np.quantile(distinct, levels, method="nearest"))
     rows = []
     for t in np.unique([*picks, *extra, np.nextafter(distinct[-1], np.inf)]):
-        m, _ = metrics_at(tl, float(t), fps, rules)
+        m, _ = metrics_at(timelines, float(t), fps, rules)
         rows.append({"threshold": float(t), "event_miss": 1.0 - m["alarm/event_recall"],
                      "false_per_hour": m["alarm/false_per_hour"]})
     return pd.DataFrame(rows)

@@ -136,8 +136,7 @@ def extract_folder(videos_root: str | Path, out: str | Path, model: VideoResNet,
 
 def _made(out: Path) -> pd.DataFrame:
     rows = [{"video": p.stem, **json.loads(p.read_text())} for p in sorted((out / ".extract").glob("*.json"))]
-    return pd.DataFrame(rows, columns=["video", "group", "frames", "source_fps", "source"]
-                        ) if not rows else pd.DataFrame(rows)
+    return pd.DataFrame(rows) if rows else pd.DataFrame(columns=["video", "group", "frames", "source_fps", "source"])
 
 
 def _write_template(out: Path, made: pd.DataFrame) -> None:

@@ -78,9 +78,10 @@ def closing_run(run, resume_path: Path):
         tracking.finish(run, None, status="KILLED")
         raise
     except tracking.TrackingUnavailable as err:  # nothing more can be logged: say how to finish
-        raise tracking.TrackingUnavailable(
-            f"{err}; run {run.run_id} stopped with its training state saved in {resume_path}; when the "
-            f"server is back, finish it with trainer.resume={run.run_id}") from None
+        saved = (f"with its training state saved in {resume_path}; when the server is back, finish it "
+                 f"with trainer.resume={run.run_id}") if resume_path.is_file() else (
+                 "before its first epoch ended; when the server is back, start it again")
+        raise tracking.TrackingUnavailable(f"{err}; run {run.run_id} stopped {saved}") from None
     except BaseException:
         try:
             tracking.finish(run, None, status="FAILED")

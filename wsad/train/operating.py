@@ -19,6 +19,7 @@ from ..evaluate.alarms import (
     event_metrics,
     event_tradeoff,
     metrics_at,
+    timelines,
     timelines_from_table,
 )
 from ..evaluate.det import DET_EVENTS, DET_FRAMES, det_points
@@ -44,13 +45,11 @@ def _events(store: FeatureStore) -> dict[str, np.ndarray]:
 
 
 def _write_csv(df: pd.DataFrame, path: Path) -> None:
-    path.parent.mkdir(parents=True, exist_ok=True)
-    with atomic_path(path) as tmp:
+    with atomic_path(path) as tmp:   # makes the folder too
         df.to_csv(tmp, index=False)
 
 
 def _write_parquet(df: pd.DataFrame, path: Path) -> None:
-    path.parent.mkdir(parents=True, exist_ok=True)
     with atomic_path(path) as tmp:
         df.to_parquet(tmp, index=False)
 
@@ -79,29 +78,28 @@ def alarm_metrics(cfg: DictConfig, s: Setup, held: dict, test) -> tuple[dict, fl
                       f"{hours:.2f} h of held-out normal training footage (the threshold allows no alarm "
                       f"there); hold out more normal video (trainer.weak_val_share) or raise the budget",
                       stacklevel=2)
-    events = _events(s.store)
-    metrics, rows = event_metrics(test, events, threshold, fps, rules)
+    tl = timelines(test, _events(s.store))   # frame scores expanded once for all that follows
+    metrics, rows = metrics_at(tl, threshold, fps, rules)
     metrics["alarm/normal_hours"] = hours
     _write_csv(pd.DataFrame(rows), s.out_dir / "scores" / "alarms_per_camera.csv")
     _write_parquet(frame_table(video_scores(s.store, {v: held[v] for v in normal})), s.out_dir / HELD_NORMAL)
-    write_det(s.out_dir, test, events, fps, rules, threshold, str(cfg.get("recipe_name", "model")))
+    write_det(s.out_dir, tl, fps, rules, threshold, str(cfg.get("recipe_name", "model")))
     return metrics, threshold
 
 
-def write_det(out_dir: Path, test, events: dict, fps: float, rules: AlarmRules, threshold: float,
+def write_det(out_dir: Path, tl: list[tuple], fps: float, rules: AlarmRules, threshold: float,
               name: str) -> None:
-    """The DET points (frames: every distinct score; events: a grid of thresholds and the budget
-    threshold) as CSV, and their plot with the budget threshold marked."""
-    known = [v for v in test if v.frame_labels is not None]
-    y = np.concatenate([v.frame_labels for v in known]) if known else np.zeros(0)
+    """The DET points of the test ``tl`` (:func:`~wsad.evaluate.alarms.timelines`; frames: every
+    distinct score; events: a grid of thresholds and the budget threshold) as CSV, and their plot
+    with the budget threshold marked."""
+    y = np.concatenate([t[2] for t in tl]) if tl else np.zeros(0, bool)
     if not len(y) or y.all() or not y.any():
         return  # a DET curve needs anomalous and normal test frames
-    fpr, fnr, thr = det_points(np.concatenate([v.frame_scores() for v in known]), y)
+    fpr, fnr, thr = det_points(np.concatenate([t[1] for t in tl]), y)
     frames = pd.DataFrame({"threshold": thr, "fpr": fpr, "fnr": fnr})
-    ev = event_tradeoff(test, events, fps, rules, extra=[threshold])
+    ev = event_tradeoff(tl, fps, rules, extra=[threshold])
     _write_csv(frames, out_dir / DET_FRAMES)
     _write_csv(ev, out_dir / DET_EVENTS)
-    (out_dir / "plots").mkdir(parents=True, exist_ok=True)
     det_plot({name: (frames, ev, threshold)}, out_dir / "plots" / "det.png",
              title=f"detection error trade-off, {name} (dot: budget threshold)")
 
