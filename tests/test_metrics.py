@@ -3,6 +3,8 @@ from __future__ import annotations
 
 import numpy as np
 import pytest
+from hypothesis import given, settings
+from hypothesis import strategies as st
 from scipy.stats import mannwhitneyu
 from sklearn.metrics import average_precision_score, roc_auc_score
 
@@ -141,3 +143,19 @@ def test_bootstrap_interval_contains_point_and_is_seeded():
     assert a["frame_ap_lo"] < m["frame_ap"] < a["frame_ap_hi"]
     assert a == grouped_bootstrap(vids, 300, seed=1)
     assert a != grouped_bootstrap(vids, 300, seed=2)
+
+
+@settings(max_examples=200, deadline=None)
+@given(st.lists(st.integers(-5, 5), min_size=1, max_size=60), st.booleans())
+def test_average_ranks_equal_scipy_rankdata(values, spread):
+    """The mid-ranks behind the AUC equal ``scipy.stats.rankdata`` (method "average") exactly,
+    ties included (reference: SciPy)."""
+    from scipy.stats import rankdata
+
+    from wsad.evaluate.metrics import average_ranks
+
+    s = np.asarray(values, dtype=np.float64) * (0.37 if spread else 1.0)
+    got = average_ranks(s)
+    assert got.dtype == np.float64 and np.array_equal(got, rankdata(s))
+    with_nan = np.r_[s, np.nan]
+    assert np.isnan(average_ranks(with_nan)).all() and np.isnan(rankdata(with_nan)).all()

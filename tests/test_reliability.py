@@ -134,6 +134,7 @@ def test_train_refuses_a_broken_store_in_one_line(small_store, tmp_path):
     (["recipe=windows", "bags.size=0"], "must be >= 1"),
     (["recipe=windows", "bags.order=random"], "use one of ['sequential', 'shuffled']"),
     (["trainer.select=best_test"], "use one of ['last', 'weak_val']"),
+    (["trainer.plots=sometimes"], "trainer.plots='sometimes'; use true, false or auto"),
     (["pooling=attention"], "needs a head that gives attention"),
     (["pooling=median"], "choose one of: attention, max, mean, topk"),
     ([], None),

@@ -54,6 +54,9 @@ def test_eight_runs_four_workers_fresh_sqlite(small_store, tmp_path):
     # readable names: recipe, the overrides that changed something, seed (not data.root)
     assert "windows trainer.epochs=1 trainer.bootstrap=0 seed=3" in names
     assert len(names) == 8
+    # trainer.plots=auto: a sweep's runs export their scores and leave the plots to the report
+    scored = list(tmp_path.glob("multirun/*/*/*/scores/test_scores.parquet"))
+    assert len(scored) == 8 and not list(tmp_path.glob("multirun/*/*/*/plots"))
     # the report over that sweep: both variants, intervals, p-values, plots
     code = "import sys; from wsad.cli.report import main; sys.argv=['wsad-report']+sys.argv[1:]; main()"
     rep = subprocess.run([sys.executable, "-c", code, "--tracking-uri", f"sqlite:///{db}",
@@ -69,6 +72,27 @@ def test_eight_runs_four_workers_fresh_sqlite(small_store, tmp_path):
     for png in ("frame_auc_by_variant.png", "roc_overlay.png", "learning_curves.png", "timelines.png",
                 "det_overlay.png"):
         assert (tmp_path / "report" / png).stat().st_size > 10_000
+
+
+def test_store_made_in_a_thread_while_the_process_opens_it(tmp_path):
+    """The sweep hook makes a fresh SQLite store in a thread while the launcher starts; a job
+    run in the same process (the basic launcher) opening it meanwhile must neither migrate
+    the same file nor see half a store."""
+    from omegaconf import OmegaConf
+
+    from wsad import tracking
+    from wsad.sweep import PrepareTracking
+
+    db = tmp_path / "fresh.db"
+    cfg = OmegaConf.create({"tracking": {"enabled": True, "uri": f"sqlite:///{db}", "experiment": "bays"}})
+    hook = PrepareTracking()
+    hook.on_multirun_start(cfg)
+    exp_id = tracking.prepare(f"sqlite:///{db}", "bays")   # at once, from this thread
+    hook.on_multirun_end(cfg)
+    assert _integrity(db) == "ok"
+    client = mlflow.MlflowClient(f"sqlite:///{db}")
+    assert [e.experiment_id for e in client.search_experiments() if e.name == "bays"] == [exp_id]
+    assert not list(tmp_path.glob(".fresh.db.*"))           # no half-made copy left beside it
 
 
 def test_sweep_through_submitit_local(small_store, tmp_path):

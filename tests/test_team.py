@@ -65,6 +65,7 @@ def _sweep_through_submitit(server, store, tmp_path, runs: int, concurrent: int)
     exp = f"team_sweep_{runs}"
     seeds = ",".join(str(i) for i in range(runs))
     res = wsad_train(tmp_path, "-m", f"data.root={store}", *BASE, "trainer.epochs=1", f"seed={seeds}",
+                     "trainer.plots=true",   # a sweep leaves plots to wsad-report unless asked; asked here
                      f"tracking.uri={server.uri}", f"tracking.experiment={exp}",
                      "hydra/launcher=submitit_local", "hydra.launcher.timeout_min=20",
                      "hydra.launcher.cpus_per_task=1", f"hydra.sweeper.max_batch_size={concurrent}",

@@ -5,6 +5,7 @@ from __future__ import annotations
 import os
 import re
 import subprocess
+import threading
 import time
 from collections.abc import Callable
 from pathlib import Path
@@ -92,7 +93,7 @@ def ensure_sqlite_store(uri: str) -> None:
     import mlflow
 
     path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(f".{path.name}.{os.getpid()}.init")
+    tmp = path.with_name(f".{path.name}.{os.getpid()}-{threading.get_ident()}.init")
     tmp.unlink(missing_ok=True)
     mlflow.MlflowClient(f"sqlite:///{tmp}").search_experiments()  # runs the migrations
     try:
@@ -103,6 +104,9 @@ def ensure_sqlite_store(uri: str) -> None:
         tmp.unlink(missing_ok=True)
 
 
+_PREPARING = threading.Lock()
+
+
 def prepare(uri: str, experiment: str) -> str:
     """Create (or open) the tracking store and the experiment; returns its id.
 
@@ -111,7 +115,8 @@ def prepare(uri: str, experiment: str) -> str:
     """
     import mlflow
 
-    ensure_sqlite_store(uri)
+    with _PREPARING:  # a sweep's launching thread may be at it in this process (wsad.sweep)
+        ensure_sqlite_store(uri)
     mlflow.set_tracking_uri(uri)
     client = mlflow.MlflowClient(uri)
     exp = retry(lambda: client.get_experiment_by_name(experiment))

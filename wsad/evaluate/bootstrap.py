@@ -11,7 +11,7 @@ bootstrap over clusters; the AP interval is the percentile bootstrap over cluste
 from __future__ import annotations
 
 import numpy as np
-from scipy import sparse, stats
+from scipy import sparse, special
 
 from ..errors import WsadError
 from .metrics import VideoScores, average_precision, roc_auc
@@ -71,7 +71,7 @@ def clustered_interval(videos: list[VideoScores], by: str = "video",
     """AUC +- t_{(1+level)/2, I-1} se over I clusters (see :func:`clustered_auc`),
     clipped to [0, 1]. Returns (lo, hi, se, I)."""
     a, se, k = clustered_auc(videos, by)
-    half = float(stats.t.ppf((1 + level) / 2, k - 1)) * se
+    half = float(special.stdtrit(k - 1, (1 + level) / 2)) * se  # the t quantile
     return max(0.0, a - half), min(1.0, a + half), se, k
 
 

@@ -23,12 +23,11 @@ from ..evaluate.alarms import (
     timelines_from_table,
 )
 from ..evaluate.det import DET_EVENTS, DET_FRAMES, det_points
-from ..evaluate.plots import det_plot
 from ..files import atomic_path
 from ..store import FeatureStore
 from ..store.format import segments_to_frames
 from .export import quiet_metrics
-from .setup import Setup
+from .setup import Setup, draws_plots
 
 HELD_NORMAL = "scores/heldout_normal_scores.parquet"   # frame scores the budget threshold is chosen on
 
@@ -83,12 +82,12 @@ def alarm_metrics(cfg: DictConfig, s: Setup, held: dict, test) -> tuple[dict, fl
     metrics["alarm/normal_hours"] = hours
     _write_csv(pd.DataFrame(rows), s.out_dir / "scores" / "alarms_per_camera.csv")
     _write_parquet(frame_table(video_scores(s.store, {v: held[v] for v in normal})), s.out_dir / HELD_NORMAL)
-    write_det(s.out_dir, tl, fps, rules, threshold, str(cfg.get("recipe_name", "model")))
+    write_det(s.out_dir, tl, fps, rules, threshold, str(cfg.get("recipe_name", "model")), draws_plots(cfg))
     return metrics, threshold
 
 
 def write_det(out_dir: Path, tl: list[tuple], fps: float, rules: AlarmRules, threshold: float,
-              name: str) -> None:
+              name: str, plot: bool = True) -> None:
     """The DET points of the test ``tl`` (:func:`~wsad.evaluate.alarms.timelines`; frames: every
     distinct score; events: a grid of thresholds and the budget threshold) as CSV, and their plot
     with the budget threshold marked."""
@@ -100,8 +99,11 @@ def write_det(out_dir: Path, tl: list[tuple], fps: float, rules: AlarmRules, thr
     ev = event_tradeoff(tl, fps, rules, extra=[threshold])
     _write_csv(frames, out_dir / DET_FRAMES)
     _write_csv(ev, out_dir / DET_EVENTS)
-    det_plot({name: (frames, ev, threshold)}, out_dir / "plots" / "det.png",
-             title=f"detection error trade-off, {name} (dot: budget threshold)")
+    if plot:
+        from ..evaluate.plots import det_plot  # matplotlib only when plots are drawn
+
+        det_plot({name: (frames, ev, threshold)}, out_dir / "plots" / "det.png",
+                 title=f"detection error trade-off, {name} (dot: budget threshold)")
 
 
 # --- transfer to other sites ----------------------------------------------------------------

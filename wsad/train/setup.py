@@ -26,6 +26,7 @@ from ..terms.base import Term
 
 SELECTIONS = ("last", "weak_val")
 SCHEDULES = (None, "cosine")
+PLOTS = (True, False, "auto")
 #: Cameras in the test split from which intervals resample cameras rather than videos by default.
 MIN_GROUPS_FOR_GROUP_UNIT = 10
 
@@ -146,6 +147,8 @@ def build(cfg: DictConfig) -> Setup:
         raise WsadError(f"trainer.select={cfg.trainer.select!r}; use one of {list(SELECTIONS)}")
     if cfg.trainer.schedule not in SCHEDULES:
         raise WsadError(f"trainer.schedule={cfg.trainer.schedule!r}; use null or cosine")
+    if cfg.trainer.get("plots", "auto") not in PLOTS:
+        raise WsadError(f"trainer.plots={cfg.trainer.plots!r}; use true, false or auto")
     epochs = int(cfg.trainer.epochs)
     if epochs < 1:
         raise WsadError(f"trainer.epochs={epochs}; train for at least 1 epoch")
@@ -213,6 +216,14 @@ def resolve_interval_unit(cfg: DictConfig, store: FeatureStore) -> None:
         raise WsadError(f"trainer.interval={cfg.trainer.interval!r}; use one of {list(INTERVALS)}")
     with open_dict(cfg):
         cfg.trainer.bootstrap_by = by
+
+
+def draws_plots(cfg: DictConfig) -> bool:
+    """``trainer.plots``: true, false, or auto: a single run draws its plots; the runs of a
+    sweep leave them out (~1 s of each run, with matplotlib's import), since wsad-report
+    draws the sweep's overlays from the same exported scores."""
+    value = cfg.trainer.get("plots", "auto")
+    return not in_multirun() if value == "auto" else bool(value)
 
 
 def in_multirun() -> bool:
