@@ -281,3 +281,39 @@ def test_tracking_failures_are_read_by_their_http_status_only(monkeypatch):
     assert read("RESOURCE_DOES_NOT_EXIST: Run 'ab401cd4019' not found") == "NoneType"
     monkeypatch.setattr(mlflow, "get_tracking_uri", lambda: "sqlite:///mlruns.db")
     assert read("error code 401 != 200") == "NoneType"        # no HTTP server, no HTTP status
+
+
+def test_epoch_rows_not_yet_sent_when_a_run_dies_are_logged_on_resume(small_store, tmp_path, monkeypatch):
+    """Epoch rows go to the tracking store every few seconds while the resume state is saved
+    every epoch: a run that dies in between has a state holding epochs the store lacks. The
+    resumed run logs exactly those, once, and ends with the scores of an uninterrupted run."""
+    from wsad.config import compose_config
+    from wsad.train import loop, train
+
+    uri = f"sqlite:///{tmp_path}/mlruns.db"
+    common = [f"data.root={small_store}", "recipe=topk", "trainer.epochs=5", "trainer.progress=false",
+              "trainer.bootstrap=0", "seed=4", f"tracking.uri={uri}"]
+    monkeypatch.setattr(loop, "LOG_EVERY_S", float("inf"))     # nothing sent before the last epoch
+    evaluate = loop._evaluate_epoch
+
+    def dies_in_epoch_4(cfg, s, epoch):
+        if epoch == 4:
+            raise RuntimeError("power cut")
+        return evaluate(cfg, s, epoch)
+
+    monkeypatch.setattr(loop, "_evaluate_epoch", dies_in_epoch_4)
+    with pytest.raises(RuntimeError, match="power cut"):
+        train(compose_config([*common, "tracking.experiment=cut", f"trainer.out_dir={tmp_path}/cut"]))
+    client = mlflow.MlflowClient(uri)
+    (cut,) = client.search_runs([client.get_experiment_by_name("cut").experiment_id])
+    assert cut.info.status == "FAILED" and client.get_metric_history(cut.info.run_id, "train_loss") == []
+    monkeypatch.setattr(loop, "_evaluate_epoch", evaluate)
+    resumed = train(compose_config([*common, "tracking.experiment=cut", f"trainer.resume={cut.info.run_id}"]))
+    whole = train(compose_config([*common, "tracking.experiment=whole", f"trainer.out_dir={tmp_path}/whole"]))
+    history = client.get_metric_history(cut.info.run_id, "train_loss")
+    assert sorted(m.step for m in history) == [1, 2, 3, 4, 5]                  # each epoch once
+    reference = {m.step: m.value for m in client.get_metric_history(whole.run_id, "train_loss")}
+    assert {m.step: m.value for m in history} == reference
+    assert client.get_run(cut.info.run_id).info.status == "FINISHED"
+    for key in ("frame_auc", "frame_ap", "video_auc", "selected_epoch"):
+        assert resumed.metrics[key] == whole.metrics[key], key
