@@ -1,6 +1,6 @@
 """Run every benchmark at one size, check the goals, write JSON and print a table.
 
-    python benchmarks/run_all.py quick     # <= 3 minutes; writes results/quick.json
+    python benchmarks/run_all.py quick     # about 6 minutes; writes results/quick.json
     python benchmarks/run_all.py full      # research scale; writes results/full.json
 
 Each script runs in its own process (fresh memory, its own thread settings)
@@ -19,7 +19,8 @@ from pathlib import Path
 from _common import machine, size_arg
 from tqdm.auto import tqdm
 
-SCRIPTS = ["train_floor.py", "cluster_term.py", "evaluation.py", "memory.py", "scaling.py", "extract.py"]
+SCRIPTS = ["train_floor.py", "cluster_term.py", "evaluation.py", "memory.py", "scaling.py", "extract.py",
+           "sweep.py"]
 
 # key, goal, "max" (value must be <=) or "min" (>=), what it measures
 GOALS = [
@@ -33,6 +34,11 @@ GOALS = [
     ("extract.ratio_to_forward", 1.3, "max", "wsad-extract per segment / the backbone's forward alone (r3d_18)"),
     ("extract.peak_rss_ratio", 1.1, "max", "peak anonymous RSS, 10-minute video / 1-minute video"),
     ("extract.segments_per_s", None, None, "wsad-extract segments per second (r3d_18, 1 crop, 2 cores)"),
+    ("sweep.efficiency", 0.8, "min", "demo sweep (6 runs, 2 workers): epoch compute / workers / wall"),
+    ("sweep.efficiency_bound", None, None, "the most any process-worker sweep of these runs can reach here"),
+    ("sweep.efficiency_long", None, None, "the same sweep with 5x the epochs"),
+    ("run.overhead_s.cold", 6.0, "max", "one wsad-train process: wall - epoch compute, s (median)"),
+    ("run.overhead_s.warm", 1.5, "max", "per run in a warm sweep worker: wall - epoch compute, s"),
 ]
 
 

@@ -4,16 +4,23 @@
   the demo's sweep (topk and windows x 3 seeds, 2 joblib workers, SQLite tracking, the default
   scenario). Epoch compute is what each run logs as ``time/train_s + time/eval_s`` per epoch.
   Goal >= 0.8.
-- ``run.overhead_s.cold``: one ``wsad-train`` process, wall time minus its epoch compute (imports,
-  store check, tracking, final evaluation, plots, artifacts). Goal <= 6 s.
-- ``run.overhead_s.warm``: the same per run inside a sweep worker that already ran one:
-  (wall of a 3-run sweep in one worker - wall of a 1-run sweep - the 2 extra runs' compute) / 2.
-  Goal <= 1.5 s.
+- ``sweep.import_floor_s``: one process importing what every worker needs before its first
+  epoch (torch, the torch._dynamo that torch.optim loads, MLflow, pandas, Hydra), and
+  ``sweep.efficiency_bound`` = ideal / (ideal + that floor): no sweep of these runs with
+  process workers can beat it on this machine, whatever wsad does.
+- ``sweep.efficiency_long``: the same sweep with 5x the epochs (a study's usual run length).
+- ``run.overhead_s.cold``: one ``wsad-train -m`` process of one run, wall time minus its epoch
+  compute (imports, store check, tracking, final evaluation, artifacts); the median of
+  ``COLD_REPEATS`` processes. Goal <= 6 s.
+- ``run.overhead_s.warm``: per run inside a worker that already ran one: in a 3-run sweep in
+  one process, the time from one run's end to the next one's end minus the next one's epoch
+  compute, averaged. Goal <= 1.5 s.
 
     python benchmarks/sweep.py [tiny|quick|full]
 """
 from __future__ import annotations
 
+import statistics
 import subprocess
 import sys
 import tempfile
@@ -24,6 +31,11 @@ from _common import WORK, emit, size_arg
 
 STORES = {"tiny": ["videos_per_camera.train=4", "videos_per_camera.test=4", "length.mean=40"],
           "quick": [], "full": []}
+EPOCHS = {"tiny": 3, "quick": 30, "full": 30}     # 30: the recipes' own default
+LONG = {"tiny": 0, "quick": 150, "full": 150}     # 0: not measured (the demo's figure stands in)
+COLD_REPEATS = {"tiny": 1, "quick": 3, "full": 5}
+FLOOR = ("import time; t = time.perf_counter(); import torch, torch._dynamo, mlflow, pandas, hydra, "
+         "omegaconf; print(time.perf_counter() - t)")
 
 
 def demo_store(size: str) -> Path:
@@ -35,8 +47,8 @@ def demo_store(size: str) -> Path:
     return path
 
 
-def sweep(store: Path, work: Path, name: str, args: list[str]) -> tuple[float, float, int]:
-    """(wall seconds, summed epoch compute seconds, runs) of one ``wsad-train -m``."""
+def sweep(store: Path, work: Path, name: str, args: list[str]) -> tuple[float, list]:
+    """Wall seconds of one ``wsad-train -m`` and its runs as (end s, epoch compute s), by end."""
     import mlflow
 
     db = work / "mlruns.db"
@@ -47,28 +59,49 @@ def sweep(store: Path, work: Path, name: str, args: list[str]) -> tuple[float, f
     subprocess.run(cmd, check=True, capture_output=True, cwd=work)
     wall = time.perf_counter() - t
     client = mlflow.MlflowClient(f"sqlite:///{db}")
-    runs = client.search_runs([client.get_experiment_by_name(name).experiment_id])
-    compute = 0.0
-    for r in runs:
-        for key in ("time/train_s", "time/eval_s"):
-            compute += sum(m.value for m in client.get_metric_history(r.info.run_id, key))
-    return wall, compute, len(runs)
+    runs = []
+    for r in client.search_runs([client.get_experiment_by_name(name).experiment_id]):
+        compute = sum(m.value for key in ("time/train_s", "time/eval_s")
+                      for m in client.get_metric_history(r.info.run_id, key))
+        runs.append((r.info.end_time / 1000.0, compute))
+    return wall, sorted(runs)
+
+
+def efficiency(store: Path, work: Path, name: str, epochs: int) -> dict:
+    demo = ["recipe=topk,windows", "seed=0,1,2", "hydra/launcher=joblib", "hydra.launcher.n_jobs=2",
+            f"trainer.epochs={epochs}"]
+    wall, runs = sweep(store, work, name, demo)
+    compute = sum(c for _, c in runs)
+    return {"efficiency": (compute / 2) / wall, "wall_s": wall, "compute_s": compute, "runs": len(runs)}
+
+
+def import_floor() -> float:
+    """Seconds a fresh process spends importing what a worker needs (the best of three)."""
+    return min(float(subprocess.run([sys.executable, "-c", FLOOR], check=True, capture_output=True,
+                                    text=True).stdout) for _ in range(3))
 
 
 def run(size: str) -> dict:
     store = demo_store(size)
     with tempfile.TemporaryDirectory() as tmp:
         work = Path(tmp)
-        demo = ["recipe=topk,windows", "seed=0,1,2", "hydra/launcher=joblib", "hydra.launcher.n_jobs=2"]
-        wall, compute, n = sweep(store, work, "demo", demo)
-        one = ["recipe=topk", "seed=0", "hydra/launcher=basic"]
-        wall1, compute1, _ = sweep(store, work, "one", one)
-        three = ["recipe=topk", "seed=0,1,2", "hydra/launcher=basic"]
-        wall3, compute3, _ = sweep(store, work, "three", three)
-    return {"sweep": {"efficiency": (compute / 2) / wall, "wall_s": wall, "compute_s": compute, "runs": n,
-                      "workers": 2},
-            "run": {"overhead_s": {"cold": wall1 - compute1, "warm": (wall3 - wall1 - (compute3 - compute1)) / 2},
-                    "one_run_wall_s": wall1, "one_run_compute_s": compute1}}
+        demo = efficiency(store, work, "demo", EPOCHS[size])
+        long = efficiency(store, work, "long", LONG[size]) if LONG[size] else demo
+        cold = []
+        for i in range(COLD_REPEATS[size]):
+            wall, runs = sweep(store, work, f"one{i}", ["recipe=topk", "seed=0", "hydra/launcher=basic",
+                                                         f"trainer.epochs={EPOCHS[size]}"])
+            cold.append(wall - runs[0][1])
+        _, three = sweep(store, work, "three", ["recipe=topk", "seed=0,1,2", "hydra/launcher=basic",
+                                                 f"trainer.epochs={EPOCHS[size]}"])
+    warm = [(end - before) - compute for (before, _), (end, compute) in zip(three, three[1:])]
+    floor = import_floor()
+    ideal = demo["compute_s"] / 2
+    return {"sweep": {**demo, "workers": 2, "epochs": EPOCHS[size],
+                      "import_floor_s": floor, "efficiency_bound": ideal / (ideal + floor),
+                      "efficiency_long": long["efficiency"], "long": {**long, "epochs": LONG[size] or EPOCHS[size]}},
+            "run": {"overhead_s": {"cold": statistics.median(cold), "warm": statistics.mean(warm)},
+                    "cold_each_s": cold, "warm_each_s": warm}}
 
 
 if __name__ == "__main__":

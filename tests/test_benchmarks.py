@@ -40,3 +40,9 @@ def test_every_benchmark_runs_at_tiny_size(tmp_path):
     ex = result["extract"]   # the pipeline really extracted the clips the forward-alone figure ran
     assert ex["segments"] > 0 and ex["rss_segments"]["long"] > ex["rss_segments"]["short"] >= 8
     assert set(ex["forward_segments_per_s"]) == {"r3d_18", "mc3_18", "r2plus1d_18"}
+    sw = result["sweep"]   # the demo sweep's six runs, each with its epoch compute logged
+    assert sw["runs"] == 6 and 0 < sw["compute_s"] and 0 < sw["efficiency"] <= 1
+    assert sw["efficiency"] == sw["compute_s"] / 2 / sw["wall_s"]
+    assert 0 < sw["import_floor_s"] and sw["efficiency_bound"] <= 1
+    assert len(result["run"]["warm_each_s"]) == 2 and result["run"]["overhead_s"]["warm"] > 0
+    assert result["run"]["overhead_s"]["cold"] > 0

@@ -317,3 +317,17 @@ def test_epoch_rows_not_yet_sent_when_a_run_dies_are_logged_on_resume(small_stor
     assert client.get_run(cut.info.run_id).info.status == "FINISHED"
     for key in ("frame_auc", "frame_ap", "video_auc", "selected_epoch"):
         assert resumed.metrics[key] == whole.metrics[key], key
+
+
+@pytest.mark.parametrize("chosen,expect", [(None, "true"), ("false", "false")])
+def test_commands_opt_out_of_mlflow_telemetry_unless_the_user_chose(chosen, expect):
+    """wsad's commands set MLFLOW_DISABLE_TELEMETRY=true (its threads held every exit ~3 s
+    here) unless the user set it; MLflow's own check then agrees."""
+    env = {k: v for k, v in os.environ.items() if k != "MLFLOW_DISABLE_TELEMETRY"}
+    if chosen is not None:
+        env["MLFLOW_DISABLE_TELEMETRY"] = chosen
+    code = ("import os, wsad.cli.train; print(os.environ['MLFLOW_DISABLE_TELEMETRY']); "
+            "from mlflow.environment_variables import MLFLOW_DISABLE_TELEMETRY as V; print(V.get())")
+    out = subprocess.run([sys.executable, "-c", code], env=env, capture_output=True, text=True, timeout=120)
+    assert out.returncode == 0, out.stderr[-1000:]
+    assert out.stdout.split() == [expect, str(expect == "true")]

@@ -11,7 +11,7 @@ from dataclasses import dataclass
 from pathlib import Path
 
 import numpy as np
-from omegaconf import DictConfig, open_dict
+from omegaconf import DictConfig, OmegaConf, open_dict
 from tqdm.auto import tqdm
 
 from .. import tracking
@@ -103,6 +103,7 @@ def fit(cfg: DictConfig, s: Setup, prog: Progress, run, resume_path: Path, prefi
     after every epoch. ``saved``: the config and extra fields the resume state records
     (default: ``cfg``)."""
     saved_cfg, extra = saved or (cfg, {})
+    saved_yaml = OmegaConf.to_yaml(saved_cfg, resolve=True)   # what every resume state records
     if run is not None and prog.history:   # resumed: the epochs the state holds that the run lacks
         logged = tracking.logged_steps(run, prefix + "train_loss")
         tracking.log_rows(run, [_logged_row(r, prefix) for r in prog.history if r["epoch"] not in logged])
@@ -112,12 +113,12 @@ def fit(cfg: DictConfig, s: Setup, prog: Progress, run, resume_path: Path, prefi
                    unit="epoch", disable=not cfg.trainer.progress, initial=prog.epoch - 1, total=s.epochs)
         try:
             for epoch in bar:
-                row = _train_epoch(cfg, s, prog, epoch, stop, resume_path, run, saved_cfg, extra)
+                row = _train_epoch(cfg, s, prog, epoch, stop, resume_path, run, saved_yaml, extra)
                 started = time.perf_counter()
                 row.update(_evaluate_epoch(cfg, s, epoch))
                 row["time/eval_s"] = time.perf_counter() - started
                 prog.record(epoch, row, s, cfg.trainer)
-                save_torch(resume_path, {**prog.snapshot(saved_cfg, s), **extra})  # before any row is sent
+                save_torch(resume_path, {**prog.snapshot(saved_yaml, s), **extra})  # before any row is sent
                 pending.append(_logged_row(prog.history[-1], prefix))
                 if epoch == s.epochs or time.monotonic() - sent >= LOG_EVERY_S:
                     tracking.log_rows(run, pending)
@@ -137,7 +138,7 @@ def _logged_row(row: dict, prefix: str) -> tuple[int, int, dict]:
 
 
 def _train_epoch(cfg, s: Setup, prog: Progress, epoch: int, stop: GracefulStop, resume_path: Path,
-                 run, saved_cfg: DictConfig, extra: dict) -> dict:
+                 run, saved_yaml: str, extra: dict) -> dict:
     """One pass over the epoch's batches (from ``prog.batch`` after a stop mid-epoch)."""
     s.model.train()
     started, segments = time.perf_counter(), 0
@@ -148,7 +149,7 @@ def _train_epoch(cfg, s: Setup, prog: Progress, epoch: int, stop: GracefulStop, 
         res = step(s.model, s.pooling, s.terms, batch, s.optimizer, cfg.trainer.grad_clip)
         prog.add_step(res.loss, res.terms)
         if stop.requested:  # the step is done: save where we are, then stop
-            save_torch(resume_path, {**prog.snapshot(saved_cfg, s, epoch, bi + 1), **extra})
+            save_torch(resume_path, {**prog.snapshot(saved_yaml, s, epoch, bi + 1), **extra})
             raise TrainingInterrupted(
                 f"stopped by signal {stop.signum} in epoch {epoch} after batch {bi + 1}; "
                 f"resume with trainer.resume={run.run_id if run else '<run id>'}", stop.signum)

@@ -62,9 +62,11 @@ class Progress:
             self.best_epoch = epoch
         self.epoch, self.batch = epoch + 1, 0
 
-    def snapshot(self, cfg: DictConfig, s: Setup, epoch: int | None = None, batch: int | None = None) -> dict:
-        """Everything a resumed run needs, as plain data (loadable with weights_only)."""
-        return {"config": OmegaConf.to_yaml(cfg, resolve=True), "model": s.model.state_dict(),
+    def snapshot(self, cfg: DictConfig | str, s: Setup, epoch: int | None = None, batch: int | None = None) -> dict:
+        """Everything a resumed run needs, as plain data (loadable with weights_only). ``cfg``: the
+        config, or its resolved YAML (the loop makes it once: ~12 ms, a tenth of a short epoch)."""
+        text = cfg if isinstance(cfg, str) else OmegaConf.to_yaml(cfg, resolve=True)
+        return {"config": text, "model": s.model.state_dict(),
                 "optimizer": s.optimizer.state_dict(),
                 "schedule": s.schedule.state_dict() if s.schedule is not None else None,
                 "rng": rng_state(), "epoch": self.epoch if epoch is None else epoch,
