@@ -153,3 +153,32 @@ def test_event_front_keeps_only_unbeaten_points():
                        "event_miss": [0.9, 0.9, 0.6, 0.5, 0.0]})
     front = event_front(ev)
     assert front[["false_per_hour", "event_miss"]].values.tolist() == [[0, 0.9], [2, 0.5], [5, 0.0]]
+
+
+@settings(max_examples=60, deadline=None)
+@given(st.lists(st.tuples(st.lists(st.integers(0, 4), min_size=1, max_size=25),
+                          st.integers(0, 3)), min_size=1, max_size=6),
+       st.integers(1, 40), st.integers(0, 40), st.integers(1, 16))
+def test_event_tradeoff_rows_equal_metrics_at_video_by_video(videos, min_frames, merge_gap, seg):
+    """The trade-off joins all videos into one timeline (a never-alarming stretch longer than the
+    merge gap between them); every row must equal :func:`metrics_at`, which goes video by video."""
+    from wsad.evaluate.alarms import event_tradeoff, metrics_at
+
+    rules = AlarmRules(min_frames=min_frames, merge_gap=merge_gap)
+    tl = []
+    for i, (levels, n_events) in enumerate(videos):
+        scores = np.repeat(np.asarray(levels, float) / 4, seg)           # segment scores as frames
+        n = len(scores)
+        cuts = np.linspace(0, n, 2 * n_events + 2).astype(int)[1:-1]
+        events = cuts.reshape(-1, 2) if n_events else np.zeros((0, 2), int)
+        events = events[events[:, 1] > events[:, 0]]
+        truth = np.zeros(n, bool)
+        for a, b in events:
+            truth[a:b] = True
+        tl.append((f"cam{i % 2}", scores, truth, events))
+    table = event_tradeoff(tl, 25.0, rules, points=16, extra=[0.5])
+    for row in table.itertuples():
+        m, _ = metrics_at(tl, row.threshold, 25.0, rules)
+        recall = m["alarm/event_recall"]
+        assert (np.isnan(row.event_miss) and np.isnan(recall)) or row.event_miss == 1.0 - recall
+        assert row.false_per_hour == m["alarm/false_per_hour"]

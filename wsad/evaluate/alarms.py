@@ -207,16 +207,28 @@ def event_tradeoff(timelines: list[tuple], fps: float, rules: AlarmRules = Alarm
     # denser towards the top scores, where the few-alarm operating points are
     levels = np.concatenate([np.linspace(0, 1, points // 2), 1 - np.geomspace(1e-5, 0.5, points - points // 2)])
     picks = np.unique(np.quantile(distinct, levels, method="nearest"))
-    # the alarms of each threshold from the run-length form of the scores: the same alarms as
-    # metrics_at finds on the frames, ~segment_frames times fewer elements to compare
-    runs = [(*_constant_runs(scores), ev) for _, scores, _, ev in timelines]
+    values, bounds, events = _joined_runs(timelines, rules)
     hours = sum(len(t[1]) for t in timelines) / fps / 3600.0
     rows = []
     for t in np.unique([*picks, *extra, np.nextafter(distinct[-1], np.inf)]):
-        caught = events = false = 0
-        for values, bounds, ev in runs:
-            m = match_events(_runs_alarms(values, bounds, float(t), rules), ev)
-            caught, events, false = caught + int(m.caught.sum()), events + len(m.caught), false + m.false_alarms
-        rows.append({"threshold": float(t), "event_miss": 1.0 - caught / events if events else float("nan"),
-                     "false_per_hour": false / hours if hours else float("nan")})
+        m = match_events(_runs_alarms(values, bounds, float(t), rules), events)
+        caught = int(m.caught.sum())
+        rows.append({"threshold": float(t), "event_miss": 1.0 - caught / len(events) if len(events) else float("nan"),
+                     "false_per_hour": m.false_alarms / hours if hours else float("nan")})
     return pd.DataFrame(rows)
+
+
+def _joined_runs(timelines: list[tuple], rules: AlarmRules) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
+    """The run-length forms (:func:`_constant_runs`) of all ``timelines`` end to end, each
+    followed by a never-alarming stretch longer than ``rules.merge_gap`` (no alarm spans two
+    videos or merges across them), and their events shifted alike: the alarms and matches of
+    every video in one pass per threshold, as :func:`metrics_at` finds them video by video."""
+    values, bounds, events, start = [], [[0]], [], 0
+    for _, scores, _, ev in timelines:
+        v, b = _constant_runs(np.asarray(scores, dtype=np.float64))
+        values += [v, [-np.inf]]
+        bounds += [start + b[1:], [start + b[-1] + rules.merge_gap + 1]]
+        events.append(np.asarray(ev, dtype=np.int64).reshape(-1, 2) + start)
+        start += b[-1] + rules.merge_gap + 1
+    return (np.concatenate(values), np.concatenate(bounds).astype(np.int64),
+            np.concatenate(events) if events else np.zeros((0, 2), np.int64))
