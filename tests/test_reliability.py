@@ -290,6 +290,7 @@ def test_epoch_rows_not_yet_sent_when_a_run_dies_are_logged_on_resume(small_stor
     from wsad.config import compose_config
     from wsad.train import loop, train
 
+    monkeypatch.setenv("MLFLOW_TRACKING_URI", "")   # MLflow sets it for child processes; undone after
     uri = f"sqlite:///{tmp_path}/mlruns.db"
     common = [f"data.root={small_store}", "recipe=topk", "trainer.epochs=5", "trainer.progress=false",
               "trainer.bootstrap=0", "seed=4", f"tracking.uri={uri}"]

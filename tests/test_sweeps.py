@@ -74,7 +74,7 @@ def test_eight_runs_four_workers_fresh_sqlite(small_store, tmp_path):
         assert (tmp_path / "report" / png).stat().st_size > 10_000
 
 
-def test_store_made_in_a_thread_while_the_process_opens_it(tmp_path):
+def test_store_made_in_a_thread_while_the_process_opens_it(tmp_path, monkeypatch):
     """The sweep hook makes a fresh SQLite store in a thread while the launcher starts; a job
     run in the same process (the basic launcher) opening it meanwhile must neither migrate
     the same file nor see half a store."""
@@ -83,6 +83,9 @@ def test_store_made_in_a_thread_while_the_process_opens_it(tmp_path):
     from wsad import tracking
     from wsad.sweep import PrepareTracking
 
+    for name in ("WSAD_LAUNCH_DIR", tracking.LAUNCHER_PREPARES, "MLFLOW_TRACKING_URI"):
+        monkeypatch.setenv(name, "")   # what the hook sets for its workers goes away after the test
+    monkeypatch.chdir(tmp_path)
     db = tmp_path / "fresh.db"
     cfg = OmegaConf.create({"tracking": {"enabled": True, "uri": f"sqlite:///{db}", "experiment": "bays"}})
     hook = PrepareTracking()
@@ -93,6 +96,36 @@ def test_store_made_in_a_thread_while_the_process_opens_it(tmp_path):
     client = mlflow.MlflowClient(f"sqlite:///{db}")
     assert [e.experiment_id for e in client.search_experiments() if e.name == "bays"] == [exp_id]
     assert not list(tmp_path.glob(".fresh.db.*"))           # no half-made copy left beside it
+
+
+def test_worker_waits_for_the_store_its_launcher_makes(tmp_path):
+    """A worker started while its launcher makes the SQLite store waits for it rather than
+    migrating a copy of its own (no MLflow import, no copy beside it); were the launcher gone,
+    it makes the store itself."""
+    from wsad import tracking
+
+    db = tmp_path / "bays.db"
+    code = ("import sys; from wsad import tracking; tracking.ensure_sqlite_store(sys.argv[1]); "
+            "print('mlflow' in sys.modules)")
+
+    def worker(launcher_pid: int) -> subprocess.Popen:
+        env = {**os.environ, tracking.LAUNCHER_PREPARES: f"{socket.gethostname()} {launcher_pid} {db}"}
+        return subprocess.Popen([sys.executable, "-c", code, f"sqlite:///{db}"], env=env, text=True,
+                                stdout=subprocess.PIPE, stderr=subprocess.PIPE)
+
+    waiting = worker(os.getpid())            # this test plays the launcher
+    time.sleep(2.0)
+    assert waiting.poll() is None and not db.exists()    # still waiting, nothing made
+    tracking.ensure_sqlite_store(f"sqlite:///{db}")
+    out, err = waiting.communicate(timeout=60)
+    assert waiting.returncode == 0, err[-2000:]
+    assert out.split() == ["False"] and not list(tmp_path.glob(".bays.db.*"))
+    db.unlink()
+    gone = subprocess.Popen([sys.executable, "-c", "pass"])
+    gone.wait()
+    orphan = worker(gone.pid)                # its launcher has exited: it makes the store
+    out, err = orphan.communicate(timeout=120)
+    assert orphan.returncode == 0 and out.split() == ["True"] and _integrity(db) == "ok", err[-2000:]
 
 
 def test_sweep_through_submitit_local(small_store, tmp_path):

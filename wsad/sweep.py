@@ -4,6 +4,7 @@ from __future__ import annotations
 import gc
 import os
 import threading
+from pathlib import Path
 from typing import Any
 
 from hydra.experimental.callback import Callback
@@ -16,9 +17,9 @@ class PrepareTracking(Callback):
 
     A local SQLite store is made in a thread while the launcher starts its workers: importing
     MLflow and migrating a fresh store took ~3 s of every sweep's start, measured here, and the
-    workers spend that long importing torch. A worker that gets to the store first builds its
-    own copy off to the side and the first complete one is linked into place
-    (:func:`wsad.tracking.ensure_sqlite_store`), so the order does not matter. A tracking
+    workers spend that long importing torch. A worker that gets to the store first waits for
+    it (or, were this process gone, builds its own copy off to the side; the first complete
+    one is linked into place: :func:`wsad.tracking.ensure_sqlite_store`). A tracking
     server is asked before any worker starts, so refused credentials are one line, once."""
 
     def __init__(self) -> None:
@@ -41,6 +42,7 @@ class PrepareTracking(Callback):
         if not uri.startswith("sqlite:///"):
             tracking.prepare(uri, experiment)
             return
+        tracking.announce_preparing(Path(uri[len("sqlite:///"):]))   # the workers wait for it
         self._thread = threading.Thread(target=self._prepare, args=(uri, experiment), daemon=True,
                                         name="wsad-prepare-tracking")
         self._thread.start()
