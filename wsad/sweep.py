@@ -19,7 +19,7 @@ class PrepareTracking(Callback):
     MLflow and migrating a fresh store took ~3 s of every sweep's start, measured here, and the
     workers spend that long importing torch. A worker that gets to the store first waits for
     it (or, were this process gone, builds its own copy off to the side; the first complete
-    one is linked into place: :func:`wsad.tracking.ensure_sqlite_store`). A tracking
+    one is linked into place: :func:`wsad.tracking_store.ensure_sqlite_store`). A tracking
     server is asked before any worker starts, so refused credentials are one line, once."""
 
     def __init__(self) -> None:

@@ -4,9 +4,7 @@ from __future__ import annotations
 
 import os
 import re
-import socket
 import subprocess
-import threading
 import time
 from collections.abc import Callable
 from pathlib import Path
@@ -17,6 +15,9 @@ from omegaconf import DictConfig, OmegaConf
 from . import __version__
 from .errors import WsadError
 from .resources import source_checkout
+from .tracking_store import _PREPARING, LAUNCHER_PREPARES, announce_preparing, ensure_sqlite_store
+
+__all__ = ["LAUNCHER_PREPARES", "announce_preparing", "ensure_sqlite_store"]
 
 #: Params (prefixes) that say where or how a run ran, never what it is: left out of
 #: run names and never taken as what tells variants apart in a report.
@@ -78,68 +79,6 @@ def retry(fn: Callable[[], Any], attempts: int = 8, delay: float = 0.25) -> Any:
     return None
 
 
-#: "host pid path": the launching process of a sweep is making the SQLite store at path
-#: (:class:`wsad.sweep.PrepareTracking`); its workers inherit this and wait for it.
-LAUNCHER_PREPARES = "WSAD_LAUNCHER_PREPARES"
-
-
-def announce_preparing(path: Path) -> None:
-    """Tell the workers this process starts that it makes the store at ``path``."""
-    os.environ[LAUNCHER_PREPARES] = f"{socket.gethostname()} {os.getpid()} {path}"
-
-
-def _wait_for_launcher(path: Path, timeout: float = 120.0) -> None:
-    """Wait while the launching process makes the store at ``path`` instead of migrating a
-    second copy beside it: measured here, three processes migrating at once on two cores
-    took 8 s where one took 3. Stops waiting when that process is gone, or elsewhere (then
-    this one builds its own copy, which is safe, only slower)."""
-    host, pid, where = (os.environ.get(LAUNCHER_PREPARES, "").split(" ", 2) + ["", "", ""])[:3]
-    if where != str(path) or host != socket.gethostname() or not pid.isdigit() or int(pid) == os.getpid():
-        return
-    deadline = time.monotonic() + timeout
-    while not path.exists() and time.monotonic() < deadline and _alive(int(pid)):
-        time.sleep(0.05)
-
-
-def _alive(pid: int) -> bool:
-    try:
-        os.kill(pid, 0)
-    except ProcessLookupError:
-        return False
-    except PermissionError:
-        return True
-    return True
-
-
-def ensure_sqlite_store(uri: str) -> None:
-    """Create a fresh SQLite tracking store off to the side and move it into place.
-
-    MLflow migrates a new store's schema in many steps; a process killed midway, or a
-    second process migrating at the same time, leaves a store that no longer opens.
-    Built under a temporary name and linked into place only when complete (a link
-    never overwrites: the first complete store wins), the store at ``uri`` is always
-    either absent or whole."""
-    if not uri.startswith("sqlite:///"):
-        return
-    path = Path(uri[len("sqlite:///"):])
-    _wait_for_launcher(path)
-    if path.exists():
-        return
-    import mlflow
-
-    path.parent.mkdir(parents=True, exist_ok=True)
-    tmp = path.with_name(f".{path.name}.{os.getpid()}-{threading.get_ident()}.init")
-    tmp.unlink(missing_ok=True)
-    mlflow.MlflowClient(f"sqlite:///{tmp}").search_experiments()  # runs the migrations
-    try:
-        os.link(tmp, path)
-    except FileExistsError:
-        pass  # another process finished first; its store is as good as ours
-    finally:
-        tmp.unlink(missing_ok=True)
-
-
-_PREPARING = threading.Lock()
 
 
 def prepare(uri: str, experiment: str) -> str:
