@@ -5,7 +5,8 @@
   scenario). Epoch compute is what each run logs as ``time/train_s + time/eval_s`` per epoch.
   Goal >= 0.8.
 - ``sweep.import_floor_s``: one process importing what every worker needs before its first
-  epoch (torch, the torch._dynamo that torch.optim loads, MLflow, pandas, Hydra), and
+  epoch (torch, the torch._dynamo that torch.optim loads, MLflow and its SQL store, pandas,
+  Hydra), and
   ``sweep.efficiency_bound`` = ideal / (ideal + that floor): no sweep of these runs with
   process workers can beat it on this machine, whatever wsad does.
 - ``sweep.efficiency_long``: the same sweep with 5x the epochs (a study's usual run length).
@@ -35,7 +36,7 @@ EPOCHS = {"tiny": 3, "quick": 30, "full": 30}     # 30: the recipes' own default
 LONG = {"tiny": 0, "quick": 150, "full": 150}     # 0: not measured (the demo's figure stands in)
 COLD_REPEATS = {"tiny": 1, "quick": 3, "full": 5}
 FLOOR = ("import time; t = time.perf_counter(); import torch, torch._dynamo, mlflow, pandas, hydra, "
-         "omegaconf; print(time.perf_counter() - t)")
+         "omegaconf, mlflow.store.tracking.sqlalchemy_store; print(time.perf_counter() - t)")
 
 
 def demo_store(size: str) -> Path:
