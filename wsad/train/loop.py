@@ -176,9 +176,10 @@ def _evaluate_epoch(cfg, s: Setup, epoch: int) -> dict:
     return row
 
 
-def final_metrics(cfg, s: Setup, prog: Progress) -> tuple[dict, list]:
+def final_metrics(cfg, s: Setup, prog: Progress, write: bool = True) -> tuple[dict, list]:
     """The selected model's test metrics, intervals and video decision (the model is left
-    holding the selected state), and its test scores."""
+    holding the selected state), and its test scores. ``write``: also write the operating
+    point's files (alarms per camera, DET points, transfer scores) into the run's folder."""
     s.model.load_state_dict(prog.best_state)
     test = video_scores(s.store, score_videos(s.model, s.store, s.test_videos, s.std, s.bags.chunks))
     final = quiet_metrics(test)
@@ -187,9 +188,9 @@ def final_metrics(cfg, s: Setup, prog: Progress) -> tuple[dict, list]:
                                        by=cfg.trainer.bootstrap_by, interval=cfg.trainer.get("interval", "clustered")))
     held = score_videos(s.model, s.store, s.val_videos or s.fit_videos, s.std, s.bags.chunks)
     final.update(_video_decision(s, held, test))
-    alarms, threshold = alarm_metrics(cfg, s, held, test)
+    alarms, threshold = alarm_metrics(cfg, s, held, test, write)
     final.update(alarms)
-    final.update(transfer_metrics(cfg, s, transfer_stores(cfg), threshold))
+    final.update(transfer_metrics(cfg, s, transfer_stores(cfg), threshold, write))
     final["selected_epoch"] = prog.best_epoch
     selected = prog.history[prog.best_epoch - 1]
     if "weak_val_video_auc" in selected:

@@ -53,11 +53,11 @@ def _write_parquet(df: pd.DataFrame, path: Path) -> None:
         df.to_parquet(tmp, index=False)
 
 
-def alarm_metrics(cfg: DictConfig, s: Setup, held: dict, test) -> tuple[dict, float | None]:
+def alarm_metrics(cfg: DictConfig, s: Setup, held: dict, test, write: bool = True) -> tuple[dict, float | None]:
     """``alarm/*`` at the threshold that keeps the held-out normal *training* videos (their
     segment scores in ``held``) within ``evaluate.budget`` alarms per camera-hour, and that
     threshold (None when skipped, with one line: no fps, or no normal video held out).
-    Writes ``scores/alarms_per_camera.csv``, the DET points and ``plots/det.png``."""
+    ``write``: also write ``scores/alarms_per_camera.csv``, the DET points and ``plots/det.png``."""
     if s.store.fps is None:
         warnings.warn("alarm metrics skipped: store.json has no fps (set it with wsad-index --fps or "
                       "the store.json key \"fps\")", stacklevel=2)
@@ -80,6 +80,8 @@ def alarm_metrics(cfg: DictConfig, s: Setup, held: dict, test) -> tuple[dict, fl
     tl = timelines(test, _events(s.store))   # frame scores expanded once for all that follows
     metrics, rows = metrics_at(tl, threshold, fps, rules)
     metrics["alarm/normal_hours"] = hours
+    if not write:
+        return metrics, threshold
     _write_csv(pd.DataFrame(rows), s.out_dir / "scores" / "alarms_per_camera.csv")
     _write_parquet(frame_table(video_scores(s.store, {v: held[v] for v in normal})), s.out_dir / HELD_NORMAL)
     write_det(s.out_dir, tl, fps, rules, threshold, str(cfg.get("recipe_name", "model")), draws_plots(cfg))
@@ -133,14 +135,15 @@ def transfer_stores(cfg: DictConfig) -> list[tuple[str, FeatureStore]]:
 
 
 def transfer_metrics(cfg: DictConfig, s: Setup, stores: list[tuple[str, FeatureStore]],
-                     threshold: float | None) -> dict:
+                     threshold: float | None, write: bool = True) -> dict:
     """The selected model on each other store's test split, with the *training* store's
-    standardiser and budget threshold: ``transfer/<name>/<metric>``; a table of them in
-    ``scores/transfer.csv``."""
+    standardiser and budget threshold: ``transfer/<name>/<metric>``; with ``write``, a table
+    of them in ``scores/transfer.csv`` and each store's frame scores beside it."""
     out, rows = {}, []
     for name, store in stores:
         test = video_scores(store, score_videos(s.model, store, store.videos("test"), s.std, s.bags.chunks))
-        _write_parquet(frame_table(test), s.out_dir / "scores" / "transfer" / f"{name}.parquet")
+        if write:
+            _write_parquet(frame_table(test), s.out_dir / "scores" / "transfer" / f"{name}.parquet")
         metrics = quiet_metrics(test)
         if threshold is not None and store.fps is not None:
             metrics.update(event_metrics(test, _events(store), threshold, store.fps,
@@ -149,7 +152,7 @@ def transfer_metrics(cfg: DictConfig, s: Setup, stores: list[tuple[str, FeatureS
             warnings.warn(f"transfer to {name}: alarm metrics skipped, its store.json has no fps", stacklevel=2)
         out.update({f"transfer/{name}/{k}": v for k, v in metrics.items()})
         rows.append({"store": name, "path": str(store.root), **metrics})
-    if rows:
+    if rows and write:
         _write_csv(pd.DataFrame(rows), s.out_dir / "scores" / "transfer.csv")
     return out
 

@@ -70,7 +70,7 @@ def train_two_stages(cfg: DictConfig, overrides, state: dict | None) -> RunResul
     with closing_run(run, resume_path):
         if resumed_stage == 1:
             fit(first, s1, prog1, run, resume_path, prefix="stage1/", saved=(cfg, {"stage": 1}))
-            metrics, _ = final_metrics(first, s1, prog1)
+            metrics, _ = final_metrics(first, s1, prog1, write=False)   # the run's files: stage 2's
             tracking.log_metrics(run, {f"stage1/{k}": v for k, v in metrics.items()}, step=s1.epochs)
             stage1_best = prog1.best_state
         else:
