@@ -88,7 +88,12 @@ def _sweep_through_submitit(server, store, tmp_path, runs: int, concurrent: int)
     assert list((tmp_path / "multirun").glob("*/*/.submitit"))
 
 
-@pytest.mark.slow   # about 3 minutes; make test checks the login, the store and the outage below
+def test_a_small_team_sweep_through_submitit(team_server, small_store, tmp_path):
+    # the reduced version in make test: two jobs at once, the same checks as the 16-run sweep
+    _sweep_through_submitit(team_server, small_store, tmp_path, runs=2, concurrent=2)
+
+
+@pytest.mark.slow   # about 3 minutes; make test runs the reduced sweep above and the long outage
 def test_sixteen_runs_four_at_a_time(team_server, small_store, tmp_path):
     _sweep_through_submitit(team_server, small_store, tmp_path, runs=16, concurrent=4)
 
