@@ -38,7 +38,7 @@ demo: setup
 	bash scripts/demo.sh $(DEMO_DIR)
 
 # Performance at research scale (tens of minutes; writes benchmarks/results/full.json) and a
-# reduced run (about 6 minutes; benchmarks/results/quick.json). Stores are generated once
+# reduced run (about 5 minutes; benchmarks/results/quick.json). Stores are generated once
 # into benchmarks/.work (WSAD_BENCH_WORK to move them).
 bench: setup
 	cd benchmarks && ../$(BIN)/python run_all.py full

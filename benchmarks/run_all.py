@@ -1,6 +1,6 @@
 """Run every benchmark at one size, check the goals, write JSON and print a table.
 
-    python benchmarks/run_all.py quick     # about 6 minutes; writes results/quick.json
+    python benchmarks/run_all.py quick     # about 5 minutes; writes results/quick.json
     python benchmarks/run_all.py full      # research scale; writes results/full.json
 
 Each script runs in its own process (fresh memory, its own thread settings)
