@@ -35,6 +35,7 @@ STORES = {"tiny": ["videos_per_camera.train=4", "videos_per_camera.test=4", "len
 EPOCHS = {"tiny": 3, "quick": 30, "full": 30}     # 30: the recipes' own default
 LONG = {"tiny": 0, "quick": 150, "full": 150}     # 0: not measured (the demo's figure stands in)
 COLD_REPEATS = {"tiny": 1, "quick": 3, "full": 5}
+FLOOR_REPEATS = {"tiny": 1, "quick": 3, "full": 3}   # the floor is the best of these
 FLOOR = ("import time; t = time.perf_counter(); import torch, torch._dynamo, mlflow, pandas, hydra, "
          "omegaconf, mlflow.store.tracking.sqlalchemy_store; print(time.perf_counter() - t)")
 
@@ -76,10 +77,10 @@ def efficiency(store: Path, work: Path, name: str, epochs: int) -> dict:
     return {"efficiency": (compute / 2) / wall, "wall_s": wall, "compute_s": compute, "runs": len(runs)}
 
 
-def import_floor() -> float:
-    """Seconds a fresh process spends importing what a worker needs (the best of three)."""
+def import_floor(repeats: int) -> float:
+    """Seconds a fresh process spends importing what a worker needs (the best of ``repeats``)."""
     return min(float(subprocess.run([sys.executable, "-c", FLOOR], check=True, capture_output=True,
-                                    text=True).stdout) for _ in range(3))
+                                    text=True).stdout) for _ in range(repeats))
 
 
 def run(size: str) -> dict:
@@ -96,7 +97,7 @@ def run(size: str) -> dict:
         _, three = sweep(store, work, "three", ["recipe=topk", "seed=0,1,2", "hydra/launcher=basic",
                                                  f"trainer.epochs={EPOCHS[size]}"])
     warm = [(end - before) - compute for (before, _), (end, compute) in zip(three, three[1:])]
-    floor = import_floor()
+    floor = import_floor(FLOOR_REPEATS[size])
     ideal = demo["compute_s"] / 2
     return {"sweep": {**demo, "workers": 2, "epochs": EPOCHS[size],
                       "import_floor_s": floor, "efficiency_bound": ideal / (ideal + floor),
