@@ -80,10 +80,10 @@ def test_store_made_in_a_thread_while_the_process_opens_it(tmp_path, monkeypatch
     the same file nor see half a store."""
     from omegaconf import OmegaConf
 
-    from wsad import tracking
+    from wsad import tracking, tracking_store
     from wsad.sweep import PrepareTracking
 
-    for name in ("WSAD_LAUNCH_DIR", tracking.LAUNCHER_PREPARES, "MLFLOW_TRACKING_URI"):
+    for name in ("WSAD_LAUNCH_DIR", tracking_store.LAUNCHER_PREPARES, "MLFLOW_TRACKING_URI"):
         monkeypatch.setenv(name, "")   # what the hook sets for its workers goes away after the test
     monkeypatch.chdir(tmp_path)
     db = tmp_path / "fresh.db"
@@ -102,21 +102,21 @@ def test_worker_waits_for_the_store_its_launcher_makes(tmp_path):
     """A worker started while its launcher makes the SQLite store waits for it rather than
     migrating a copy of its own (no MLflow import, no copy beside it); were the launcher gone,
     it makes the store itself."""
-    from wsad import tracking
+    from wsad import tracking_store
 
     db = tmp_path / "bays.db"
-    code = ("import sys; from wsad import tracking; tracking.ensure_sqlite_store(sys.argv[1]); "
+    code = ("import sys; from wsad import tracking_store; tracking_store.ensure_sqlite_store(sys.argv[1]); "
             "print('mlflow' in sys.modules)")
 
     def worker(launcher_pid: int) -> subprocess.Popen:
-        env = {**os.environ, tracking.LAUNCHER_PREPARES: f"{socket.gethostname()} {launcher_pid} {db}"}
+        env = {**os.environ, tracking_store.LAUNCHER_PREPARES: f"{socket.gethostname()} {launcher_pid} {db}"}
         return subprocess.Popen([sys.executable, "-c", code, f"sqlite:///{db}"], env=env, text=True,
                                 stdout=subprocess.PIPE, stderr=subprocess.PIPE)
 
     waiting = worker(os.getpid())            # this test plays the launcher
     time.sleep(2.0)
     assert waiting.poll() is None and not db.exists()    # still waiting, nothing made
-    tracking.ensure_sqlite_store(f"sqlite:///{db}")
+    tracking_store.ensure_sqlite_store(f"sqlite:///{db}")
     out, err = waiting.communicate(timeout=60)
     assert waiting.returncode == 0, err[-2000:]
     assert out.split() == ["False"] and not list(tmp_path.glob(".bays.db.*"))

@@ -33,7 +33,7 @@ class PrepareTracking(Callback):
         self.__init__()
 
     def on_multirun_start(self, config: DictConfig, **kwargs: Any) -> None:
-        from . import tracking
+        from . import tracking, tracking_store
 
         os.environ.setdefault("WSAD_LAUNCH_DIR", os.getcwd())
         if not config.tracking.get("enabled", True):
@@ -42,7 +42,7 @@ class PrepareTracking(Callback):
         if not uri.startswith("sqlite:///"):
             tracking.prepare(uri, experiment)
             return
-        tracking.announce_preparing(Path(uri[len("sqlite:///"):]))   # the workers wait for it
+        tracking_store.announce_preparing(Path(uri[len("sqlite:///"):]))   # the workers wait for it
         self._thread = threading.Thread(target=self._prepare, args=(uri, experiment), daemon=True,
                                         name="wsad-prepare-tracking")
         self._thread.start()

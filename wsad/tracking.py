@@ -15,9 +15,7 @@ from omegaconf import DictConfig, OmegaConf
 from . import __version__
 from .errors import WsadError
 from .resources import source_checkout
-from .tracking_store import _PREPARING, LAUNCHER_PREPARES, announce_preparing, ensure_sqlite_store
-
-__all__ = ["LAUNCHER_PREPARES", "announce_preparing", "ensure_sqlite_store"]
+from .tracking_store import ensure_sqlite_store
 
 #: Params (prefixes) that say where or how a run ran, never what it is: left out of
 #: run names and never taken as what tells variants apart in a report.
@@ -79,8 +77,6 @@ def retry(fn: Callable[[], Any], attempts: int = 8, delay: float = 0.25) -> Any:
     return None
 
 
-
-
 def prepare(uri: str, experiment: str) -> str:
     """Create (or open) the tracking store and the experiment; returns its id.
 
@@ -89,8 +85,7 @@ def prepare(uri: str, experiment: str) -> str:
     """
     import mlflow
 
-    with _PREPARING:  # a sweep's launching thread may be at it in this process (wsad.sweep)
-        ensure_sqlite_store(uri)
+    ensure_sqlite_store(uri)
     mlflow.set_tracking_uri(uri)
     client = mlflow.MlflowClient(uri)
     exp = retry(lambda: client.get_experiment_by_name(experiment))

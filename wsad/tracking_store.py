@@ -15,6 +15,7 @@ from pathlib import Path
 #: "host pid path": the launching process of a sweep is making the SQLite store at path
 #: (:class:`wsad.sweep.PrepareTracking`); its workers inherit this and wait for it.
 LAUNCHER_PREPARES = "WSAD_LAUNCHER_PREPARES"
+_PREPARING = threading.Lock()
 
 
 def announce_preparing(path: Path) -> None:
@@ -52,13 +53,18 @@ def ensure_sqlite_store(uri: str) -> None:
     second process migrating at the same time, leaves a store that no longer opens.
     Built under a temporary name and linked into place only when complete (a link
     never overwrites: the first complete store wins), the store at ``uri`` is always
-    either absent or whole."""
+    either absent or whole. One thread of a process at a time: a sweep's launching thread
+    (:class:`wsad.sweep.PrepareTracking`) and a run in the same process may both get here."""
     if not uri.startswith("sqlite:///"):
         return
     path = Path(uri[len("sqlite:///"):])
-    _wait_for_launcher(path)
-    if path.exists():
-        return
+    with _PREPARING:
+        _wait_for_launcher(path)
+        if not path.exists():
+            _migrate_beside(path)
+
+
+def _migrate_beside(path: Path) -> None:
     import mlflow
 
     path.parent.mkdir(parents=True, exist_ok=True)
@@ -71,6 +77,3 @@ def ensure_sqlite_store(uri: str) -> None:
         pass  # another process finished first; its store is as good as ours
     finally:
         tmp.unlink(missing_ok=True)
-
-
-_PREPARING = threading.Lock()
