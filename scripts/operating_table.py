@@ -2,7 +2,7 @@
 
 usage: python scripts/operating_table.py [--work DIR] [--seeds 0,1,2] [--budgets 0.5,1,5] [--footage default|long]
 Trains each recipe on warehouse 1 (scoring warehouse 2 as a transfer store), then reads every
-budget from the exported scores (wsad.train.budget_table). `--footage long` holds out about
+budget from the exported scores (wsad.report.budget_table). `--footage long` holds out about
 2 hours of normal training video (30 videos per camera of ~240 segments, a third of the cameras
 held out), enough to resolve a budget of 0.5 per hour; the default scenario holds out 0.26 h.
 Prints markdown tables: mean over seeds of events caught and false alarms per hour at each
@@ -17,9 +17,9 @@ from pathlib import Path
 import pandas as pd
 
 from wsad.config import compose_config
-from wsad.report import frame_markdown
+from wsad.report import budget_table, frame_markdown
 from wsad.synthetic import generate_store, load_scenario
-from wsad.train import budget_table, train
+from wsad.train import train
 
 RECIPES = ("topk", "windows", "mil_ranking")
 FOOTAGE = {"default": ([], []), "long": (["videos_per_camera.train=30", "length.mean=240"],

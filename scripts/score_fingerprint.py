@@ -29,7 +29,8 @@ def fingerprint(work: Path, spec: str) -> dict:
                           *[e for e in extra.split(",") if e]]))
     scores = pd.read_parquet(work / name / "scores" / "test_scores.parquet")
     text = scores.to_csv(index=False, float_format="%.17g").encode()
-    return {"scores_sha256": hashlib.sha256(text).hexdigest()[:16], "mean_score": float(scores.score.mean())}
+    return {"scores_sha256": hashlib.sha256(text).hexdigest()[:16],
+            "mean_score": float(scores.score.astype("float64").mean())}
 
 
 def main(argv: list[str]) -> None:

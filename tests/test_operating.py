@@ -10,8 +10,9 @@ from omegaconf import OmegaConf
 
 from wsad.config import compose_config
 from wsad.errors import WsadError
+from wsad.report import budget_table
 from wsad.synthetic import Signatures, load_scenario
-from wsad.train import budget_table, train
+from wsad.train import train
 
 COMMON = ["recipe=topk", "trainer.epochs=3", "trainer.progress=false", "tracking.enabled=false",
           "trainer.bootstrap=0"]

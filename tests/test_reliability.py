@@ -133,8 +133,13 @@ def test_train_refuses_a_broken_store_in_one_line(small_store, tmp_path):
     (["objective.sparsity=-1"], "must be >= 0"),
     (["recipe=windows", "bags.size=0"], "must be >= 1"),
     (["recipe=windows", "bags.order=random"], "use one of ['sequential', 'shuffled']"),
-    (["trainer.select=best_test"], "use one of ['last', 'weak_val']"),
-    (["trainer.plots=sometimes"], "trainer.plots='sometimes'; use true, false or auto"),
+    (["trainer.select=best_test"], "trainer.select=best_test; use one of last, weak_val"),
+    (["trainer.plots=sometimes"], "trainer.plots=sometimes; use one of true, false, auto"),
+    (["trainer.epoch=3"], "trainer.epoch is not a setting; did you mean trainer.epochs?"),
+    (["+trainer.epoch=3"], "trainer.epoch is not a setting; did you mean trainer.epochs?"),
+    (["trainer.epochs=three"], "trainer.epochs=three: trainer.epochs takes a whole number"),
+    (["evaluate.budgte=2"], "evaluate.budgte is not a setting; did you mean evaluate.budget?"),
+    (["trainer.schedule=cosine"], "use schedule=NAME"),
     (["pooling=attention"], "needs a head that gives attention"),
     (["pooling=median"], "choose one of: attention, max, mean, topk"),
     ([], None),
@@ -268,21 +273,17 @@ def test_services_bind_to_loopback():
     assert "--host 127.0.0.1" in out.stdout
 
 
-def test_tracking_failures_are_read_by_their_http_status_only(monkeypatch):
+def test_tracking_failures_are_read_by_their_http_status_only():
     # a run id holding "401" is not a refused login; an HTTP 401/403/503 from a server is
-    import mlflow
+    from wsad.tracking import read_failure
 
-    from wsad import tracking
-
-    monkeypatch.setattr(mlflow, "get_tracking_uri", lambda: "http://127.0.0.1:5000")
-    read = lambda m: type(tracking._tracking_error(Exception(m))).__name__  # noqa: E731
+    read = lambda m, uri="http://127.0.0.1:5000": type(read_failure(Exception(m), uri)).__name__  # noqa: E731
     assert read("API request to endpoint /x failed with error code 401 != 200") == "WsadError"
     assert read("error code 403 != 200") == "WsadError"
     assert read("503 Server Error: Service Unavailable") == "TrackingUnavailable"
     assert read("HTTPConnectionPool(host='127.0.0.1'): Max retries exceeded") == "TrackingUnavailable"
     assert read("RESOURCE_DOES_NOT_EXIST: Run 'ab401cd4019' not found") == "NoneType"
-    monkeypatch.setattr(mlflow, "get_tracking_uri", lambda: "sqlite:///mlruns.db")
-    assert read("error code 401 != 200") == "NoneType"        # no HTTP server, no HTTP status
+    assert read("error code 401 != 200", "sqlite:///mlruns.db") == "NoneType"   # no HTTP server, no status
 
 
 def test_epoch_rows_not_yet_sent_when_a_run_dies_are_logged_on_resume(small_store, tmp_path, monkeypatch):

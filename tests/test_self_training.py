@@ -64,10 +64,11 @@ def test_a_term_needing_segment_labels_refuses_other_bags(small_store, tmp_path)
 
 
 def test_one_run_holds_both_stages_and_labels_come_from_training_videos(small_store, tmp_path, monkeypatch):
-    import wsad.train.operating as operating
+    import wsad.evaluate.evaluation as evaluation
 
-    det_written = []   # the run's operating-point files are stage 2's: stage 1 must not write them
-    monkeypatch.setattr(operating, "write_det", lambda out_dir, *a, **k: det_written.append(out_dir))
+    det_made = []   # the run's operating-point files are stage 2's: stage 1 must not compute its DET
+    tradeoff = evaluation.event_tradeoff
+    monkeypatch.setattr(evaluation, "event_tradeoff", lambda *a, **k: det_made.append(1) or tradeoff(*a, **k))
     uri = f"sqlite:///{tmp_path}/mlruns.db"
     cfg = compose_config([f"data.root={small_store}", "recipe=self_training", "trainer.epochs=3",
                           "self_training.stage2.epochs=2", "trainer.progress=false", "trainer.bootstrap=0",
@@ -88,7 +89,8 @@ def test_one_run_holds_both_stages_and_labels_come_from_training_videos(small_st
     assert len(client.get_metric_history(res.run_id, "stage2/train_loss")) == 2
     assert m["frame_auc"] == res.metrics["frame_auc"] and "term/pseudo_bce" in res.history[0]
     assert 0 < m["stage2/pseudo_positive_share"] < 1
-    assert "stage1/alarm/false_per_hour" in m and det_written == [res.out_dir]
+    assert "stage1/alarm/false_per_hour" in m and det_made == [1]
+    assert (res.out_dir / "scores" / "det_events.csv").is_file()
 
 
 def _state(path):

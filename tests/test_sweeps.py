@@ -80,8 +80,9 @@ def test_store_made_in_a_thread_while_the_process_opens_it(tmp_path, monkeypatch
     the same file nor see half a store."""
     from omegaconf import OmegaConf
 
-    from wsad import tracking, tracking_store
+    from wsad import tracking
     from wsad.sweep import PrepareTracking
+    from wsad.tracking import sqlite as tracking_store
 
     for name in ("WSAD_LAUNCH_DIR", tracking_store.LAUNCHER_PREPARES, "MLFLOW_TRACKING_URI"):
         monkeypatch.setenv(name, "")   # what the hook sets for its workers goes away after the test
@@ -102,10 +103,10 @@ def test_worker_waits_for_the_store_its_launcher_makes(tmp_path):
     """A worker started while its launcher makes the SQLite store waits for it rather than
     migrating a copy of its own (no MLflow import, no copy beside it); were the launcher gone,
     it makes the store itself."""
-    from wsad import tracking_store
+    from wsad.tracking import sqlite as tracking_store
 
     db = tmp_path / "bays.db"
-    code = ("import sys; from wsad import tracking_store; tracking_store.ensure_sqlite_store(sys.argv[1]); "
+    code = ("import sys; from wsad.tracking import sqlite; sqlite.ensure_sqlite_store(sys.argv[1]); "
             "print('mlflow' in sys.modules)")
 
     def worker(launcher_pid: int) -> subprocess.Popen:

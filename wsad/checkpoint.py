@@ -8,6 +8,7 @@ from pathlib import Path
 import torch
 from omegaconf import DictConfig, OmegaConf
 
+from .data.scorer import Scorer
 from .data.standardize import Standardizer
 from .errors import WsadError
 from .files import atomic_path
@@ -26,12 +27,12 @@ def save_torch(path: str | Path, payload: dict) -> Path:
     return Path(path)
 
 
-def save_checkpoint(path: str | Path, model: torch.nn.Module, cfg: DictConfig, std: Standardizer,
-                    dim: int) -> Path:
-    """A state dict plus config and standardiser, loadable with ``weights_only``."""
-    return save_torch(path, {"state_dict": model.state_dict(),
+def save_checkpoint(path: str | Path, scorer: Scorer, cfg: DictConfig, dim: int) -> Path:
+    """A scorer's state dict, standardiser and chunk count plus the config, loadable with
+    ``weights_only``."""
+    return save_torch(path, {"state_dict": scorer.model.state_dict(),
                              "config": OmegaConf.to_yaml(cfg, resolve=True),
-                             "standardizer": std.state(), "dim": int(dim)})
+                             "standardizer": scorer.std.state(), "dim": int(dim), "chunks": scorer.chunks})
 
 
 def load_checkpoint(path: str | Path) -> dict:
@@ -56,3 +57,11 @@ def model_from_checkpoint(ckpt: dict) -> tuple[torch.nn.Module, DictConfig, Stan
     model.load_state_dict(ckpt["state_dict"])
     model.eval()
     return model, cfg, Standardizer.from_state(ckpt["standardizer"])
+
+
+def scorer_from_checkpoint(path: str | Path) -> tuple[Scorer, DictConfig, int]:
+    """The :class:`~wsad.data.scorer.Scorer` a checkpoint holds, its config and feature width."""
+    ckpt = load_checkpoint(path)
+    model, cfg, std = model_from_checkpoint(ckpt)
+    chunks = ckpt["chunks"] if "chunks" in ckpt else cfg.bags.get("chunks")   # older checkpoints: the YAML's
+    return Scorer(model, std, chunks), cfg, int(ckpt["dim"])

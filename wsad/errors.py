@@ -23,13 +23,27 @@ def debugging() -> bool:
     return os.environ.get("WSAD_DEBUG", "") not in ("", "0")
 
 
+def one_line_warnings(prog: str) -> Callable:
+    """Show every warning as one readable line, ``PROG: warning: message``; returns the
+    formatter it replaced."""
+    import warnings
+
+    before = warnings.formatwarning
+    warnings.formatwarning = lambda message, category, filename, lineno, line=None: f"{prog}: warning: {message}\n"
+    return before
+
+
 def guarded(fn: Callable[[], Any], prog: str) -> Any:
     """Call ``fn``; a failure becomes one line on stderr and ``sys.exit``.
 
     A :class:`WsadError` exits with its own code (2 for input problems; an
     interrupted run uses 128 + signal and is not called an error), Ctrl-C
     with 130, anything unexpected with 1. ``WSAD_DEBUG=1`` adds the traceback.
+    Warnings show as one line each (:func:`one_line_warnings`).
     """
+    import warnings
+
+    before = one_line_warnings(prog)
     try:
         return fn()
     except WsadError as err:
@@ -46,6 +60,8 @@ def guarded(fn: Callable[[], Any], prog: str) -> Any:
         print(f"{prog}: internal error: {type(err).__name__}: {err} "
               "(set WSAD_DEBUG=1 for the traceback)", file=sys.stderr)
         sys.exit(1)
+    finally:
+        warnings.formatwarning = before
 
 
 def run_cli(fn: Callable[[], int | None], prog: str) -> None:

@@ -21,7 +21,7 @@ from .errors import WsadError
 from .resources import CONF_DIR
 
 #: Groups with one option chosen per run.
-GROUPS = ("data", "bags", "head", "pooling", "optim", "trainer", "tracking", "recipe", "sweep")
+GROUPS = ("data", "bags", "head", "pooling", "optim", "schedule", "trainer", "evaluate", "tracking", "recipe", "sweep")
 #: A term's YAML key that is not a constructor argument: the weight ``ablation.toggle`` gives it.
 ABLATION_KEY = "ablation_weight"
 #: The config node the terms are registered as (``conf/config.yaml`` names it in its defaults).
@@ -44,10 +44,11 @@ def search_dirs(overrides: list[str] | None = None) -> list[Path]:
 
 
 def _searchpath(overrides: list[str]) -> list[str]:
-    for o in overrides:
-        key, _, value = o.lstrip("+~").partition("=")
-        if key == "hydra.searchpath":
-            return [v.strip().strip("'\"") for v in value.strip().strip("[]").split(",") if v.strip()]
+    from .settings import parse_overrides
+
+    for o in parse_overrides([x for x in overrides if x.lstrip("+~").startswith("hydra.searchpath=")]):
+        value = o.value()
+        return [str(v) for v in (value if isinstance(value, list) else [value])]
     return []
 
 
@@ -78,8 +79,13 @@ def term_configs(dirs: list[Path] | None = None) -> dict[str, dict[str, Any]]:
 def register_terms(dirs: list[Path] | None = None) -> list[str]:
     """Put the known terms into Hydra's config store as ``registered_terms``:
     ``terms.<name>`` (settings), ``objective.<name>`` = 0 and
-    ``ablation.on_weight.<name>``. Call before composing a config."""
+    ``ablation.on_weight.<name>``, and the typed groups' schemas
+    (:func:`wsad.settings.register_schemas`). Call before composing a config."""
     from hydra.core.config_store import ConfigStore
+
+    from .settings import register_schemas
+
+    register_schemas()
 
     configs = term_configs(dirs)
     settings = {n: {k: v for k, v in c.items() if k != ABLATION_KEY} for n, c in configs.items()}

@@ -5,7 +5,7 @@ import argparse
 import sys
 
 from ..errors import run_cli
-from ..evaluate.metrics import REPORTED
+from ..evaluate.catalogue import reported
 
 
 def _main(argv: list[str]) -> int:
@@ -31,7 +31,7 @@ def _main(argv: list[str]) -> int:
     uri = resolve_uri(args.tracking_uri)
     runs = load_runs(uri, args.experiment, args.filter)
     by = [b.strip() for b in args.by.split(",")] if args.by else None
-    rep = build_report(runs, by=by, baseline=args.baseline, metrics=REPORTED, alpha=args.alpha)
+    rep = build_report(runs, by=by, baseline=args.baseline, metrics=reported(), alpha=args.alpha)
     paths = write_report(rep, args.out, uri, headline=args.metric, plots=not args.no_plots, plan=args.plan)
     print(markdown_table(rep, args.metric))
     if args.plan is not None:  # the plan write_report made

@@ -32,8 +32,7 @@ def _main(argv: list[str]) -> int:
     if out.exists():
         raise WsadError(f"out={out} exists; choose a new file (wsad-score never overwrites)")
 
-    from ..checkpoint import load_checkpoint, model_from_checkpoint
-    from ..data.scoring import score_videos
+    from ..checkpoint import scorer_from_checkpoint
     from ..evaluate import compute_metrics, frame_table, video_scores
     from ..files import atomic_path
     from ..store import FeatureStore, check_store
@@ -42,17 +41,15 @@ def _main(argv: list[str]) -> int:
     if errors:
         raise WsadError(f"the store has {len(errors)} problem(s), first: {errors[0]}; "
                         f"run wsad-check {opts['data.root']}")
-    ckpt = load_checkpoint(opts["checkpoint"])
-    model, cfg, std = model_from_checkpoint(ckpt)
+    scorer, cfg, dim = scorer_from_checkpoint(opts["checkpoint"])
     store = FeatureStore(opts["data.root"], crops=opts.get("data.crops", cfg.data.crops))
-    if store.dim != int(ckpt["dim"]):
-        raise WsadError(f"the model was trained on {ckpt['dim']}-d features; "
-                        f"the store has {store.dim}-d")
+    if store.dim != dim:
+        raise WsadError(f"the model was trained on {dim}-d features; the store has {store.dim}-d")
     split = opts.get("split", "test")
     videos = store.videos(None if split == "all" else split)
     if not videos:
         raise WsadError(f"the store has no {split} videos")
-    scored = video_scores(store, score_videos(model, store, videos, std, cfg.bags.get("chunks")))
+    scored = video_scores(store, scorer(store, videos))
     table = frame_table(scored)
     with atomic_path(out) as tmp:
         table.to_parquet(tmp, index=False)

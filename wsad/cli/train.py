@@ -12,9 +12,9 @@ from omegaconf import DictConfig
 from .. import registry
 from ..errors import WsadError, guarded
 from ..resources import CONF_DIR
+from ..settings import check_overrides, parse_overrides
 
 PROG = "wsad-train"
-SHOWN = ("frame_auc", "frame_ap", "anomalous_video_auc", "false_alarm_rate", "video_auc", "video_balanced_accuracy")
 
 
 @hydra.main(config_path=str(CONF_DIR), config_name="config", version_base="1.3")
@@ -24,15 +24,43 @@ def _app(cfg: DictConfig) -> float:
     from ..train import train
 
     if cfg.tracking.get("enabled", True):
-        import mlflow  # noqa: F401 - imported before the freeze below, like torch
+        from ..tracking.client import load
+
+        load()  # MLflow imported before the freeze below, like torch
     gc.freeze()   # what the imports made (no collection first: it would walk them all)
     overrides = list(HydraConfig.get().overrides.task)
     res = guarded(lambda: train(cfg, overrides), PROG)
-    shown = ", ".join(f"{k} {res.metrics[k]:.4f}" for k in SHOWN if k in res.metrics)
-    print(f"{PROG}: {shown}\n  artifacts in {res.out_dir}"
-          + (f"\n  MLflow run {res.run_id}" if res.run_id else ""))
+    print(end_of_run(res, cfg))
     _freeze_survivors()
     return res.objective
+
+
+def end_of_run(res, cfg: DictConfig) -> str:
+    """The primary metric with its interval and the other console metrics; then, when the store
+    has an fps, the operating point; then where the run is (names and order: the catalogue)."""
+    from ..evaluate.catalogue import CATALOGUE, console
+
+    m = res.metrics
+
+    def shown(name: str) -> str:
+        text = f"{name} {m[name]:.3f}"
+        if f"{name}_lo" in m:
+            text += f" [{m[name + '_lo']:.3f}, {m[name + '_hi']:.3f}]"
+        return text
+
+    names = [n for n in console() if n in m]
+    scores = [shown(n) for n in names if CATALOGUE[n].stage != "operating point"]
+    lines = [f"{PROG}: " + (" · ".join(scores) or "no test metric (see the warnings)")]
+    if "alarm/threshold" in m:
+        budget = float(cfg.get("evaluate", {}).get("budget", 1.0))
+        lines.append(f"  operating point at {budget:g} false alarm(s) per camera-hour on "
+                     f"{m.get('alarm/normal_hours', float('nan')):.2f} h of held-out normal footage: threshold "
+                     f"{m['alarm/threshold']:.3f}, event recall {m.get('alarm/event_recall', float('nan')):.3f}, "
+                     f"{m.get('alarm/false_per_hour', float('nan')):.2f} false alarms per hour of test footage")
+    lines.append(f"  run folder {res.out_dir} (summary.json)")
+    if res.run_id:
+        lines.append(f"  MLflow run {res.run_id}")
+    return "\n".join(lines)
 
 
 def _freeze_survivors() -> None:
@@ -46,33 +74,34 @@ def _freeze_survivors() -> None:
 
 
 def check_arguments(argv: list[str], dirs: list[Path]) -> None:
-    """The mistakes Hydra would answer with a screenful, answered in one line:
-    an unknown option of a config group, an unknown term, a missing data.root."""
+    """The mistakes Hydra would answer with a screenful, answered in one line: an unknown
+    option of a config group, an unknown term, a missing data.root, a misspelt key or a wrong
+    type in a typed group (:func:`wsad.settings.check_overrides`). Read with Hydra's parser."""
     args = [a for a in argv if not a.startswith("-")]
-    keys = {a.split("=", 1)[0].lstrip("+~") for a in args if "=" in a}
+    parsed = parse_overrides(args)
+    keys = {o.key_or_group for o in parsed}
     if "data.root" not in keys and "trainer.resume" not in keys and not any(
             a in ("--help", "-h", "--info") or a.startswith("--cfg") for a in argv):
         raise WsadError("data.root=DIR is required (a feature store; make one with wsad-synth or "
                         "wsad-index)")
     terms = registry.options("terms", dirs)
-    for a in args:
-        if "=" not in a:
-            continue
-        key, value = a.split("=", 1)
+    for o in parsed:
+        key = o.key_or_group
         if key.startswith("objective.") and key.split(".", 1)[1] not in terms:
             raise WsadError(f"{key} is not a term; known terms: {', '.join(terms)} (a term of your "
                             "own: terms/NAME.yaml in a folder on hydra.searchpath; see DEVELOPERS.md)")
-        key = key.lstrip("+~")
         if key == "terms":
             raise WsadError("terms is not a group to choose from: every terms/NAME.yaml is a term; "
                             "switch one on with objective.NAME=WEIGHT")
-        if key not in registry.GROUPS or "(" in value:
+        if key not in registry.GROUPS or o.is_delete():
             continue
+        if o.is_sweep_override() and not o.is_choice_sweep():
+            continue   # a glob, range or interval: Hydra says what it makes of it
         known = registry.options(key, dirs)
-        for option in value.strip("[]").split(","):
-            option = option.strip()
-            if option and option not in known:
+        for option in (list(o.sweep_iterator()) if o.is_sweep_override() else [o.value()]):
+            if isinstance(option, str) and option not in known:
                 raise WsadError(f"{key}={option} is not known; choose one of: {', '.join(known)}")
+    check_overrides(args)
 
 
 def main() -> None:

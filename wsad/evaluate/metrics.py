@@ -1,8 +1,8 @@
-"""Frame-level evaluation.
+"""Frame-level evaluation kernels: scores joined with ground truth, AUC and AP.
 
 Segment scores become frame scores (segment t covers frames [F t, F t + F),
-F = the store's ``segment_frames``, the last one also the tail). Metrics
-(DESIGN names):
+F = the store's ``segment_frames``, the last one also the tail). The metrics themselves are declared in
+:mod:`wsad.evaluate.catalogue`; the main ones:
 
 - ``frame_auc``: ROC AUC over the concatenated frames of all test videos (micro),
   AUC = (R_+ - n_+ (n_+ + 1) / 2) / (n_+ n_-), R_+ the sum of the positive frames'
@@ -15,7 +15,6 @@ F = the store's ``segment_frames``, the last one also the tail). Metrics
 """
 from __future__ import annotations
 
-import warnings
 from dataclasses import dataclass
 
 import numpy as np
@@ -24,13 +23,7 @@ import pandas as pd
 from ..errors import WsadError
 from ..store.format import SEGMENT_FRAMES, FeatureStore, segments_to_frames
 
-METRICS = ("frame_auc", "frame_ap", "anomalous_video_auc", "false_alarm_rate", "video_auc")
-#: The operating point at the false-alarm budget (see :mod:`wsad.evaluate.alarms`).
-ALARM_METRICS = ("alarm/event_recall", "alarm/false_per_hour", "alarm/delay_s", "alarm/frame_precision",
-                 "alarm/frame_recall", "alarm/threshold")
-#: Everything a report aggregates: the metrics above, the video decision at ``video_threshold``
-#: and the operating point (and, when runs log them, the same per transfer store).
-REPORTED = METRICS + ("video_threshold", "video_accuracy", "video_balanced_accuracy") + ALARM_METRICS
+#: The fixed threshold of ``false_alarm_rate`` (and the line drawn on timelines).
 ALARM_THRESHOLD = 0.5
 
 
@@ -117,43 +110,9 @@ def frame_table(videos: list[VideoScores]) -> pd.DataFrame:
     for v in videos:
         lab = v.frame_labels.astype(np.int8) if v.frame_labels is not None else np.full(v.frames, -1, np.int8)
         parts.append(pd.DataFrame({"video": v.video, "frame": np.arange(v.frames, dtype=np.int64),
-                                   "score": v.frame_scores().astype(np.float64),
+                                   "score": v.frame_scores(),
                                    "label": lab, "group": v.group}))
     return pd.concat(parts, ignore_index=True) if parts else pd.DataFrame(columns=cols)
-
-
-def compute_metrics(videos: list[VideoScores]) -> dict[str, float]:
-    """The DESIGN metrics. Frame-level ones need events for anomalous test
-    videos; videos without them are skipped with a warning."""
-    if not videos:
-        raise WsadError("no test videos to evaluate")
-    out: dict[str, float] = {}
-    missing = [v.video for v in videos if v.frame_labels is None]
-    if missing:
-        warnings.warn(f"{len(missing)} anomalous test video(s) have no events "
-                      f"(e.g. {missing[0]}); frame-level metrics skip them", stacklevel=2)
-    have = [v for v in videos if v.frame_labels is not None]
-    if have:
-        s = np.concatenate([v.frame_scores() for v in have])
-        y = np.concatenate([v.frame_labels for v in have])
-        if 0 < y.sum() < len(y):
-            out["frame_auc"] = roc_auc(y, s, "frame_auc")
-            out["frame_ap"] = average_precision(y, s, "frame_ap")
-        anom = [v for v in have if v.label == 1]
-        if anom:
-            ya = np.concatenate([v.frame_labels for v in anom])
-            if 0 < ya.sum() < len(ya):
-                sa = np.concatenate([v.frame_scores() for v in anom])
-                out["anomalous_video_auc"] = roc_auc(ya, sa, "anomalous_video_auc")
-    normal = [v for v in videos if v.label == 0]
-    if normal:
-        sn = np.concatenate([v.frame_scores() for v in normal])
-        out["false_alarm_rate"] = float((sn >= ALARM_THRESHOLD).mean())
-    labels = np.array([v.label for v in videos])
-    if 0 < labels.sum() < len(labels):
-        out["video_auc"] = roc_auc(labels, [float(np.max(v.segment_scores)) for v in videos],
-                                   "video_auc")
-    return out
 
 
 def per_video_table(videos: list[VideoScores]) -> pd.DataFrame:

@@ -1,5 +1,6 @@
 """Runs -> tables with intervals and paired tests (:mod:`.tables`), read from
 MLflow and grouped into variants (:mod:`.runs`), and the figures (:mod:`.plots`)."""
+from .budgets import budget_table
 from .runs import label_keys, load_runs, varying_params
 from .tables import (
     Report,
@@ -12,5 +13,5 @@ from .tables import (
     write_report,
 )
 
-__all__ = ["label_keys", "load_runs", "varying_params", "Report", "build_report", "frame_markdown", "latex_table",
-           "markdown_table", "paired_tests", "t_interval", "write_report"]
+__all__ = ["budget_table", "label_keys", "load_runs", "varying_params", "Report", "build_report", "frame_markdown",
+           "latex_table", "markdown_table", "paired_tests", "t_interval", "write_report"]

@@ -2,7 +2,6 @@
 timelines of the same test videos across variants."""
 from __future__ import annotations
 
-import os
 import tempfile
 from pathlib import Path
 
@@ -40,21 +39,22 @@ def _one_run_per_variant(rep) -> dict[str, str]:
     return out
 
 
-def _artifact(client, run_id: str, path: str, tmp: Path) -> pd.DataFrame | None:
+def _artifact(uri: str, run_id: str, path: str, tmp: Path) -> pd.DataFrame | None:
     """A table artifact of a run (parquet or CSV), None when the run has none."""
-    try:
-        p = client.download_artifacts(run_id, path, str(tmp / run_id))
-    except Exception:  # noqa: BLE001 - a run without the artifact is skipped
+    from ..tracking.client import download
+
+    p = download(uri, run_id, path, tmp / run_id)
+    if p is None:
         return None
     return pd.read_parquet(p) if path.endswith(".parquet") else pd.read_csv(p)
 
 
-def det_overlay(rep, client, tmp: Path, path: Path) -> Path | None:
+def det_overlay(rep, uri: str, tmp: Path, path: Path) -> Path | None:
     """The DET curves of one run per variant, each with its budget threshold marked."""
     curves = {}
     for v, run_id in _one_run_per_variant(rep).items():
-        frames = _artifact(client, run_id, DET_FRAMES, tmp)
-        events = _artifact(client, run_id, DET_EVENTS, tmp)
+        frames = _artifact(uri, run_id, DET_FRAMES, tmp)
+        events = _artifact(uri, run_id, DET_EVENTS, tmp)
         if frames is None or events is None:
             continue
         row = rep.runs[rep.runs.run_id == run_id].iloc[0]
@@ -65,11 +65,13 @@ def det_overlay(rep, client, tmp: Path, path: Path) -> Path | None:
     return det_plot(curves, path, title="detection error trade-off (one run per variant; dots: budget thresholds)")
 
 
-def learning_curves(rep, client, path: Path, metric: str) -> Path:
+def learning_curves(rep, uri: str, path: Path, metric: str) -> Path:
+    from ..tracking.client import metric_history
+
     rows = []
     for _, r in rep.runs.iterrows():
         for name in (metric, "train_loss"):
-            hist = client.get_metric_history(r.run_id, name)
+            hist = metric_history(uri, r.run_id, name)
             seen = set()
             for m in sorted(hist, key=lambda m: (m.step, m.timestamp)):
                 if m.step in seen:  # the final value is logged again at the last step
@@ -122,14 +124,10 @@ def all_plots(rep, out: Path, tracking_uri: str | None, headline: str) -> dict[s
         paths["metric_plot"] = metric_plot(rep, headline, out / f"{headline}_by_variant.png")
     if tracking_uri is None:
         return paths
-    os.environ.setdefault("MLFLOW_ENABLE_ARTIFACTS_PROGRESS_BAR", "false")
-    import mlflow
-
-    client = mlflow.MlflowClient(tracking_uri)
     tmp = Path(tempfile.mkdtemp(prefix="wsad-report-"))
     scores = {}
     for v, run_id in _one_run_per_variant(rep).items():
-        df = _artifact(client, run_id, "scores/test_scores.parquet", tmp)
+        df = _artifact(tracking_uri, run_id, "scores/test_scores.parquet", tmp)
         if df is not None:
             scores[v] = df
     if scores:
@@ -137,8 +135,8 @@ def all_plots(rep, out: Path, tracking_uri: str | None, headline: str) -> dict[s
                   for v, d in scores.items()}
         paths["roc"] = roc_plot(curves, out / "roc_overlay.png", title="frame-level ROC (one run per variant)")
         paths["timelines"] = timelines(scores, out / "timelines.png")
-    det = det_overlay(rep, client, tmp, out / "det_overlay.png")
+    det = det_overlay(rep, tracking_uri, tmp, out / "det_overlay.png")
     if det is not None:
         paths["det"] = det
-    paths["learning_curves"] = learning_curves(rep, client, out / "learning_curves.png", headline)
+    paths["learning_curves"] = learning_curves(rep, tracking_uri, out / "learning_curves.png", headline)
     return paths

@@ -9,21 +9,9 @@ from ..tracking import BOOKKEEPING
 
 def load_runs(tracking_uri: str, experiment: str, filter_string: str = "") -> pd.DataFrame:
     """One row per FINISHED run: run_id, run_name, params.* and metrics.* columns."""
-    import mlflow
+    from ..tracking.client import experiment_runs
 
-    client = mlflow.MlflowClient(tracking_uri)
-    exp = client.get_experiment_by_name(experiment)
-    if exp is None:
-        names = [e.name for e in client.search_experiments()]
-        raise WsadError(f"no experiment {experiment!r} at {tracking_uri}; known: {', '.join(names) or 'none'}")
-    runs, token = [], None
-    while True:
-        page = client.search_runs([exp.experiment_id], filter_string=filter_string,
-                                  max_results=1000, page_token=token)
-        runs += list(page)
-        token = page.token
-        if not token:
-            break
+    runs = experiment_runs(tracking_uri, experiment, filter_string)
     rows = []
     for r in runs:
         if r.info.status != "FINISHED":

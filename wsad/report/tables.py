@@ -19,7 +19,7 @@ from pathlib import Path
 import pandas as pd
 
 from ..errors import WsadError
-from ..evaluate.metrics import REPORTED
+from ..evaluate.catalogue import reported
 from .runs import label_keys, label_of, varying_params
 from .stats import holm, paired_tests, t_interval
 
@@ -35,12 +35,13 @@ class Report:
 
 
 def build_report(runs: pd.DataFrame, by: list[str] | None = None, baseline: str | None = None,
-                 metrics: tuple[str, ...] = REPORTED, alpha: float = 0.05) -> Report:
+                 metrics: tuple[str, ...] | None = None, alpha: float = 0.05) -> Report:
     """Group runs by ``by`` (default: the varying params), aggregate over seeds,
     and pair every variant with ``baseline`` (a variant label, or k=v pairs;
     default: a variant whose values look like the unchanged recipe, else the first)."""
     by = varying_params(runs) if by is None else list(by)
-    metrics = tuple(metrics) + transfer_columns(runs, metrics)
+    metrics = reported() if metrics is None else tuple(metrics)
+    metrics = metrics + transfer_columns(runs, metrics)
     for key in by:
         if f"params.{key}" not in runs.columns:
             raise WsadError(f"--by {key}: no run has this param; varying ones: "

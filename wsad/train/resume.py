@@ -6,7 +6,6 @@ from __future__ import annotations
 import random
 import signal
 import threading
-from pathlib import Path
 
 import numpy as np
 import torch
@@ -74,24 +73,3 @@ def _to_lists(x):
 
 def _to_tuples(x):
     return tuple(_to_tuples(v) for v in x) if isinstance(x, list) else x
-
-
-def find_checkpoint(run_id: str, tracking_uri: str) -> Path:
-    """The resume checkpoint of an MLflow run: its local path (tag), else its artifact."""
-    import mlflow
-
-    client = mlflow.MlflowClient(tracking_uri)
-    try:
-        run = client.get_run(run_id)
-    except Exception:  # noqa: BLE001 - MLflow raises its own types for unknown ids
-        raise WsadError(f"trainer.resume={run_id}: no such run at {tracking_uri}") from None
-    if run.info.status == "FINISHED":
-        raise WsadError(f"run {run_id} already FINISHED; nothing to resume")
-    local = run.data.tags.get("wsad.resume_checkpoint")
-    if local and Path(local).is_file():
-        return Path(local)
-    try:
-        return Path(client.download_artifacts(run_id, "state/resume.pt"))
-    except Exception:  # noqa: BLE001
-        raise WsadError(f"run {run_id} has no resume checkpoint (it stopped before its first "
-                        "epoch ended); start it again instead") from None

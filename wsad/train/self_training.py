@@ -16,11 +16,11 @@ from __future__ import annotations
 import numpy as np
 from omegaconf import DictConfig, OmegaConf, open_dict
 
-from .. import tracking
-from ..data.scoring import score_videos
 from ..errors import WsadError
-from .loop import RunResult, closing_run, final_metrics, finish, fit, start_run
+from ..store import FeatureStore
+from .loop import fit
 from .progress import Progress
+from .run import RunResult, closing, conclude, open_sinks, score_and_evaluate, selection_metrics
 from .setup import Setup, build
 
 
@@ -43,7 +43,7 @@ def stage_configs(cfg: DictConfig) -> tuple[DictConfig, DictConfig]:
 
 def pseudo_labels(s: Setup, threshold: float) -> dict[str, np.ndarray]:
     """Segment labels of the stage-1 fit videos from its selected model (see module doc)."""
-    scores = score_videos(s.model, s.store, s.fit_videos, s.std, s.bags.chunks)
+    scores = s.scorer()(s.store, s.fit_videos)
     return {v: label_segments(x, s.store.label(v), threshold) for v, x in scores.items()}
 
 
@@ -59,19 +59,21 @@ def label_segments(scores: np.ndarray, video_label: int, threshold: float) -> np
     return np.where(norm >= threshold, 1, -1).astype(np.int8)
 
 
-def train_two_stages(cfg: DictConfig, overrides, state: dict | None) -> RunResult:
+def train_two_stages(cfg: DictConfig, overrides, state: dict | None,
+                     transfer: list[tuple[str, FeatureStore]]) -> RunResult:
     first, second = stage_configs(cfg)
     s1 = build(first)
     resumed_stage = int(state.get("stage", 1)) if state is not None else 1
     prog1 = Progress.restore(state, s1) if resumed_stage == 1 and state is not None else Progress.start(s1)
-    run = start_run(cfg, overrides, s1, cfg.trainer.get("resume"))
+    sinks = open_sinks(cfg, overrides, s1)
     resume_path = s1.out_dir / "state" / "resume.pt"
-    tracking.set_tag(run, "wsad.resume_checkpoint", str(resume_path.resolve()))
-    with closing_run(run, resume_path):
+    sinks.tag("wsad.resume_checkpoint", str(resume_path.resolve()))
+    with closing(sinks, resume_path):
         if resumed_stage == 1:
-            fit(first, s1, prog1, run, resume_path, prefix="stage1/", saved=(cfg, {"stage": 1}))
-            metrics, _ = final_metrics(first, s1, prog1, write=False)   # the run's files: stage 2's
-            tracking.log_metrics(run, {f"stage1/{k}": v for k, v in metrics.items()}, step=s1.epochs)
+            fit(first, s1, prog1, sinks, resume_path, prefix="stage1/", saved=(cfg, {"stage": 1}))
+            ev = score_and_evaluate(first, s1, prog1, transfer)   # logged only: the run's files are stage 2's
+            metrics = {**ev.metrics, **selection_metrics(prog1)}
+            sinks.log_rows([(s1.epochs, None, {f"stage1/{k}": v for k, v in metrics.items()})])
             stage1_best = prog1.best_state
         else:
             stage1_best = state["stage1_best"]
@@ -83,9 +85,9 @@ def train_two_stages(cfg: DictConfig, overrides, state: dict | None) -> RunResul
                             "(_target_: wsad.bags.pseudo.PseudoLabelWindows)")
         s2.bags.attach(labels)
         prog2 = Progress.restore(state, s2) if resumed_stage == 2 else Progress.start(s2)
-        fit(second, s2, prog2, run, resume_path, prefix="stage2/",
+        fit(second, s2, prog2, sinks, resume_path, prefix="stage2/",
             saved=(cfg, {"stage": 2, "stage1_best": stage1_best}))
         labelled = np.concatenate(list(labels.values()))
-        tracking.log_metrics(run, {"stage2/pseudo_positive_share": float((labelled == 1).mean()),
-                                   "stage2/pseudo_unlabelled_share": float((labelled == -1).mean())}, step=0)
-        return finish(second, s2, prog2, run, saved_cfg=cfg)
+        sinks.log_rows([(0, None, {"stage2/pseudo_positive_share": float((labelled == 1).mean()),
+                                   "stage2/pseudo_unlabelled_share": float((labelled == -1).mean())})])
+        return conclude(second, s2, prog2, sinks, transfer, saved_cfg=cfg)

@@ -16,19 +16,16 @@ from ..bags.base import BagConstruction
 from ..checkpoint import build_head
 from ..data.batch import BagLoader, Item
 from ..data.cache import ArrayCache
+from ..data.scorer import Scorer
 from ..data.standardize import Standardizer
 from ..errors import WsadError
+from ..evaluate.evaluation import MIN_GROUPS_FOR_GROUP_UNIT
 from ..pooling.modules import Pooling
 from ..registry import build_component
+from ..settings import check_config
 from ..store import FeatureStore
 from ..store.check_cache import errors_of
 from ..terms.base import Term
-
-SELECTIONS = ("last", "weak_val")
-SCHEDULES = (None, "cosine")
-PLOTS = (True, False, "auto")
-#: Cameras in the test split from which intervals resample cameras rather than videos by default.
-MIN_GROUPS_FOR_GROUP_UNIT = 10
 
 
 def deterministic() -> None:
@@ -140,15 +137,16 @@ class Setup:
     epochs: int
     out_dir: Path
 
+    def scorer(self, state: dict | None = None) -> Scorer:
+        """The model as a :class:`~wsad.data.scorer.Scorer` (holding ``state`` when given)."""
+        if state is not None:
+            self.model.load_state_dict(state)
+        return Scorer(self.model, self.std, self.bags.chunks)
+
 
 def build(cfg: DictConfig) -> Setup:
     """Check the config's own settings and the store, split it, and build every component."""
-    if cfg.trainer.select not in SELECTIONS:
-        raise WsadError(f"trainer.select={cfg.trainer.select!r}; use one of {list(SELECTIONS)}")
-    if cfg.trainer.schedule not in SCHEDULES:
-        raise WsadError(f"trainer.schedule={cfg.trainer.schedule!r}; use null or cosine")
-    if cfg.trainer.get("plots", "auto") not in PLOTS:
-        raise WsadError(f"trainer.plots={cfg.trainer.plots!r}; use true, false or auto")
+    check_config(cfg)
     epochs = int(cfg.trainer.epochs)
     if epochs < 1:
         raise WsadError(f"trainer.epochs={epochs}; train for at least 1 epoch")
@@ -175,9 +173,8 @@ def build(cfg: DictConfig) -> Setup:
     model = build_head(cfg, store.dim)
     pooling.check(model)
     optimizer = build_component(cfg.optim, "optim", params=model.parameters())
-    schedule = None
-    if cfg.trainer.schedule == "cosine":
-        schedule = torch.optim.lr_scheduler.CosineAnnealingLR(optimizer, T_max=epochs)
+    node = cfg.get("schedule")
+    schedule = build_component(node, "schedule", optimizer=optimizer) if node and "_target_" in node else None
     out_dir = Path(cfg.trainer.out_dir or hydra_dir() or tempfile.mkdtemp(prefix="wsad-run-"))
     loader = BagLoader(store, bags, std, ArrayCache(float(cfg.data.cache_mb)))
     return Setup(store, fit_videos, val_videos, store.videos("test"), std, bags, pooling,
@@ -204,16 +201,10 @@ def resolve_interval_unit(cfg: DictConfig, store: FeatureStore) -> None:
     the camera when the test split has at least 10 of them (fewer clusters give
     intervals too narrow to trust), else the video; the chosen value is what the
     run logs as its param."""
-    from ..evaluate.bootstrap import INTERVALS, UNITS
-
     by = cfg.trainer.get("bootstrap_by")
     if by is None:
         groups = store.manifest.loc[store.manifest["split"] == "test", "group"].nunique()
         by = "group" if groups >= MIN_GROUPS_FOR_GROUP_UNIT else "video"
-    if by not in UNITS:
-        raise WsadError(f"trainer.bootstrap_by={by!r}; use one of {list(UNITS)} or null")
-    if cfg.trainer.get("interval", "clustered") not in INTERVALS:
-        raise WsadError(f"trainer.interval={cfg.trainer.interval!r}; use one of {list(INTERVALS)}")
     with open_dict(cfg):
         cfg.trainer.bootstrap_by = by
 

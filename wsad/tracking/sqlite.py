@@ -65,12 +65,12 @@ def ensure_sqlite_store(uri: str) -> None:
 
 
 def _migrate_beside(path: Path) -> None:
-    import mlflow
+    from .client import migrate
 
     path.parent.mkdir(parents=True, exist_ok=True)
     tmp = path.with_name(f".{path.name}.{os.getpid()}-{threading.get_ident()}.init")
     tmp.unlink(missing_ok=True)
-    mlflow.MlflowClient(f"sqlite:///{tmp}").search_experiments()  # runs the migrations
+    migrate(tmp)
     try:
         os.link(tmp, path)
     except FileExistsError:

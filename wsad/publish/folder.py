@@ -1,0 +1,104 @@
+"""The run folder: scores, tables, plots when asked, the config, the checkpoint and a
+``summary.json`` with every final metric, its interval, the settings' fingerprint and the
+warnings. Every file is written through a temporary name and a rename."""
+from __future__ import annotations
+
+import json
+import math
+from pathlib import Path
+
+import pandas as pd
+from omegaconf import OmegaConf
+
+from ..checkpoint import save_checkpoint
+from ..evaluate.catalogue import CATALOGUE
+from ..evaluate.det import DET_EVENTS, DET_FRAMES
+from ..files import atomic_path
+from ..tracking.params import settings_fingerprint
+from .base import Outcome, Sink
+
+SUMMARY = "summary.json"
+TEST_SCORES = "scores/test_scores.parquet"
+HELDOUT_SCORES = "scores/heldout_scores.parquet"   # the held-out training videos the thresholds are set on
+HISTORY = "scores/history.csv"
+CAMERAS = "scores/alarms_per_camera.csv"
+TRANSFER = "scores/transfer.csv"
+
+
+def write_table(df: pd.DataFrame, path: Path) -> Path:
+    """A table as parquet or CSV (by suffix), atomically (the folder is made too)."""
+    with atomic_path(path) as tmp:
+        df.to_parquet(tmp, index=False) if path.suffix == ".parquet" else df.to_csv(tmp, index=False)
+    return path
+
+
+def write_text(text: str, path: Path) -> Path:
+    with atomic_path(path) as tmp:
+        tmp.write_text(text)
+    return path
+
+
+class FolderSink(Sink):
+    """Writes a finished run into its folder (``outcome.out_dir``)."""
+
+    def publish(self, o: Outcome) -> None:
+        out, ev = Path(o.out_dir), o.evaluation
+        write_table(ev.test_table(), out / TEST_SCORES)
+        write_table(pd.DataFrame(o.history), out / HISTORY)
+        if ev.heldout:
+            write_table(ev.heldout_table(), out / HELDOUT_SCORES)
+        if ev.cameras is not None:
+            write_table(ev.cameras, out / CAMERAS)
+        if ev.det_frames is not None:
+            write_table(ev.det_frames, out / DET_FRAMES)
+            write_table(ev.det_events, out / DET_EVENTS)
+        for t in ev.transfer:
+            write_table(t.table(), out / "scores" / "transfer" / f"{t.name}.parquet")
+        if ev.transfer:
+            write_table(ev.transfer_table(), out / TRANSFER)
+        if o.plots:
+            draw_plots(o)
+        write_text(OmegaConf.to_yaml(o.config, resolve=True), out / "config" / "resolved.yaml")
+        save_checkpoint(out / "model" / "checkpoint.pt", o.scorer, o.config, o.dim)
+        write_text(json.dumps(summary(o), indent=1, default=str) + "\n", out / SUMMARY)
+
+
+def summary(o: Outcome) -> dict:
+    """Every final metric with its interval (catalogue order first), the settings, the warnings."""
+    m = o.metrics
+    names = [n for n in CATALOGUE if n in m] + sorted(k for k in m if k not in CATALOGUE and not _bound(k, m))
+    metrics = {}
+    for n in names:
+        entry = {"value": _num(m[n])}
+        if f"{n}_lo" in m:
+            entry.update(lo=_num(m[f"{n}_lo"]), hi=_num(m[f"{n}_hi"]))
+        metrics[n] = entry
+    return {"format": 1, "name": o.name, "run_id": o.run_id, "store_fingerprint": o.store_fingerprint,
+            "settings_fingerprint": settings_fingerprint(o.config, o.store_fingerprint),
+            "evaluation": o.evaluation.settings.as_dict(), "metrics": metrics, "warnings": list(o.warnings)}
+
+
+def _bound(key: str, m: dict) -> bool:
+    """``<name>_lo`` / ``<name>_hi`` of a metric that is itself in ``m`` (kept with it)."""
+    return key.endswith(("_lo", "_hi")) and key[:-3] in m
+
+
+def _num(x) -> float | None:
+    x = float(x)
+    return None if math.isnan(x) else x
+
+
+def draw_plots(o: Outcome) -> None:
+    """roc.png, timelines.png and det.png of the run (matplotlib only when plots are drawn)."""
+    from ..evaluate.plots import det_plot, roc_plot, timeline_plot
+
+    out, ev, name = Path(o.out_dir), o.evaluation, o.name
+    table = ev.test_table()
+    lab = table[table["label"] >= 0]
+    if lab["label"].nunique() == 2:
+        roc_plot({name: (lab["label"].to_numpy(), lab["score"].to_numpy())},
+                 out / "plots" / "roc.png", title=f"frame-level ROC, {name}")
+    timeline_plot(ev.test.videos, out / "plots" / "timelines.png", title=f"test videos, {name}")
+    if ev.det_frames is not None:
+        det_plot({name: (ev.det_frames, ev.det_events, ev.threshold)}, out / "plots" / "det.png",
+                 title=f"detection error trade-off, {name} (dot: budget threshold)")
