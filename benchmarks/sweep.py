@@ -63,6 +63,8 @@ def sweep(store: Path, work: Path, name: str, args: list[str]) -> tuple[float, l
     client = mlflow.MlflowClient(f"sqlite:///{db}")
     runs = []
     for r in client.search_runs([client.get_experiment_by_name(name).experiment_id]):
+        if r.data.tags.get("wsad.sweep") == "parent":
+            continue   # the sweep's parent run computes nothing
         compute = sum(m.value for key in ("time/train_s", "time/eval_s")
                       for m in client.get_metric_history(r.info.run_id, key))
         runs.append((r.info.end_time / 1000.0, compute))

@@ -12,6 +12,7 @@ import pytest
 from conftest import REPO
 
 from wsad.config import compose_config
+from wsad.evaluate import catalogue
 from wsad.train import train
 
 GUIDE = (REPO / "DEVELOPERS.md").read_text()
@@ -31,10 +32,12 @@ def guide_modules():
     yield
     for n in names:
         sys.modules.pop(n, None)
+    catalogue.remove("peak_in_event")   # the metric example registered itself
 
 
-def test_guide_has_the_three_examples():
-    assert [p for p, _ in BLOCKS] == ["wsad/bags/truncated", "wsad/heads/linear", "wsad/terms/margin_gap"]
+def test_guide_has_the_five_examples():
+    assert [p for p, _ in BLOCKS] == ["wsad/bags/truncated", "wsad/heads/linear", "wsad/terms/margin_gap",
+                                      "wsad/evaluate/peak_in_event", "wsad/publish/ledger"]
     assert [p for p, _ in YAMLS] == ["conf/bags/truncated.yaml", "conf/head/linear.yaml",
                                      "conf/terms/margin_gap.yaml"]
 
@@ -54,3 +57,26 @@ def test_examples_train(small_store, tmp_path):
     train(cfg)
     hist = pd.read_csv(tmp_path / "scores" / "history.csv")
     assert hist["term/margin_gap"].iloc[0] > 0
+
+
+def test_metric_example_is_logged_and_matches_a_hand_computation(small_store, tmp_path):
+    """One catalogue entry and its function: the run logs the metric, its summary holds it, and
+    its value is the share computed here by hand from the exported frame scores."""
+    import json
+
+    ledger = sys.modules["wsad.publish.ledger"].Ledger(tmp_path / "runs.csv")
+    cfg = compose_config([f"data.root={small_store}", "recipe=topk", "trainer.epochs=2", "trainer.progress=false",
+                          "tracking.enabled=false", "trainer.bootstrap=0", f"trainer.out_dir={tmp_path}/run"])
+    res = train(cfg, sinks=[ledger])
+    frames = pd.read_parquet(tmp_path / "run" / "scores" / "test_scores.parquet")
+    anomalous = frames.groupby("video").filter(lambda g: g.label.max() == 1)
+    by_hand = anomalous.groupby("video").apply(lambda g: g.label.iloc[g.score.to_numpy().argmax()]).mean()
+    assert res.metrics["peak_in_event"] == pytest.approx(by_hand) and 0 < by_hand < 1
+    summary = json.loads((tmp_path / "run" / "summary.json").read_text())
+    assert summary["metrics"]["peak_in_event"]["value"] == res.metrics["peak_in_event"]
+    assert "peak_in_event" in pd.read_csv(tmp_path / "run" / "scores" / "history.csv").columns
+    assert "peak_in_event" in catalogue.reported()
+    # the sink example: one ledger row per finished run
+    train(cfg, sinks=[ledger])
+    rows = pd.read_csv(tmp_path / "runs.csv")
+    assert len(rows) == 2 and rows.frame_auc.iloc[0] == res.metrics["frame_auc"]

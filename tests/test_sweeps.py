@@ -46,11 +46,17 @@ def test_eight_runs_four_workers_fresh_sqlite(small_store, tmp_path):
                      "seed=0,1,2,3", *BASE, "hydra/launcher=joblib", "hydra.launcher.n_jobs=4")
     assert res.returncode == 0, res.stderr[-3000:]
     db = tmp_path / "mlruns.db"
-    assert [s for (s,) in _runs(db)] == ["FINISHED"] * 8
+    assert [s for (s,) in _runs(db)] == ["FINISHED"] * 9   # 8 trials and the sweep's parent run
     assert _integrity(db) == "ok"
     client = mlflow.MlflowClient(f"sqlite:///{db}")
-    names = {r.info.run_name for r in client.search_runs(
-        [client.get_experiment_by_name("wsad").experiment_id])}
+    runs = client.search_runs([client.get_experiment_by_name("wsad").experiment_id])
+    (parent,) = [r for r in runs if r.data.tags.get("wsad.sweep") == "parent"]
+    trials = [r for r in runs if r is not parent]
+    # one parent run, every trial its child (the MLflow UI nests them), the store as dataset input
+    assert {r.data.tags.get("mlflow.parentRunId") for r in trials} == {parent.info.run_id}
+    from wsad.store import store_fingerprint
+    assert {d.dataset.digest for r in trials for d in r.inputs.dataset_inputs} == {store_fingerprint(small_store)}
+    names = {r.info.run_name for r in trials}
     # readable names: recipe, the overrides that changed something, seed (not data.root)
     assert "windows trainer.epochs=1 trainer.bootstrap=0 seed=3" in names
     assert len(names) == 8
@@ -135,7 +141,7 @@ def test_sweep_through_submitit_local(small_store, tmp_path):
                      "hydra.launcher.cpus_per_task=1")
     assert res.returncode == 0, res.stderr[-3000:]
     db = tmp_path / "mlruns.db"
-    assert [s for (s,) in _runs(db)] == ["FINISHED"] * 2
+    assert [s for (s,) in _runs(db)] == ["FINISHED"] * 3   # 2 trials and the sweep's parent run
     assert list((tmp_path / "multirun").glob("*/*/.submitit"))  # real submitit jobs ran
 
 
@@ -183,7 +189,8 @@ def test_parallel_workers_log_to_a_real_server(small_store, tmp_path, mlflow_ser
     client = mlflow.MlflowClient(url)
     exp = client.get_experiment_by_name("served")
     runs = client.search_runs([exp.experiment_id])
-    assert len(runs) == 2 and {r.info.status for r in runs} == {"FINISHED"}
+    assert len(runs) == 3 and {r.info.status for r in runs} == {"FINISHED"}   # 2 trials and their parent
+    runs = [r for r in runs if r.data.tags.get("wsad.sweep") != "parent"]
     for r in runs:
         paths = {a.path for a in client.list_artifacts(r.info.run_id, "scores")}
         assert "scores/test_scores.parquet" in paths

@@ -58,7 +58,8 @@ def _client(server) -> mlflow.MlflowClient:
 def _runs(server, experiment: str) -> list:
     client = _client(server)
     exp = client.get_experiment_by_name(experiment)
-    return [] if exp is None else client.search_runs([exp.experiment_id], max_results=1000)
+    found = [] if exp is None else client.search_runs([exp.experiment_id], max_results=1000)
+    return [r for r in found if r.data.tags.get("wsad.sweep") != "parent"]   # the trials, not a sweep's parent
 
 
 def _sweep_through_submitit(server, store, tmp_path, runs: int, concurrent: int) -> None:

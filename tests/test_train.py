@@ -143,9 +143,19 @@ def _cli(tmp_path, *args):
 
 def test_console_train_and_score(small_store, tmp_path):
     res = _cli(tmp_path, "train", f"data.root={small_store}", "recipe=topk", "trainer.epochs=2",
-               "trainer.progress=false", f"hydra.run.dir={tmp_path}/run")
+               f"hydra.run.dir={tmp_path}/run")
     assert res.returncode == 0, res.stderr[-2000:]
-    assert "frame_auc" in res.stdout and (tmp_path / "mlruns.db").exists()
+    assert (tmp_path / "mlruns.db").exists()
+    # the end line leads with the primary metric and its interval, then the operating point
+    first, point = res.stdout.splitlines()[:2]
+    assert first.startswith("wsad-train: frame_auc 0.") and first.split()[3].startswith("[")
+    assert "false_alarm_rate" not in res.stdout and "operating point at 1 false alarm(s)" in point
+    # the progress bar shows the loss and weak validation, never a test metric
+    assert "loss=" in res.stderr and "weak_val=" in res.stderr and "auc=" not in res.stderr
+    # warnings: one readable line each, no source line
+    warned = [ln for ln in res.stderr.splitlines() if "warning:" in ln]
+    assert warned and all(ln.startswith("wsad-train: warning: ") for ln in warned)
+    assert "UserWarning" not in res.stderr and "warnings.warn" not in res.stderr
     exported = pd.read_parquet(tmp_path / "run" / "scores" / "test_scores.parquet")
     res = _cli(tmp_path, "score", f"checkpoint={tmp_path}/run/model/checkpoint.pt",
                f"data.root={small_store}", f"out={tmp_path}/again.parquet")

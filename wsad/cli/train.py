@@ -13,6 +13,7 @@ from .. import registry
 from ..errors import WsadError, guarded
 from ..resources import CONF_DIR
 from ..settings import check_overrides, parse_overrides
+from .console import metric_lines
 
 PROG = "wsad-train"
 
@@ -37,27 +38,9 @@ def _app(cfg: DictConfig) -> float:
 
 def end_of_run(res, cfg: DictConfig) -> str:
     """The primary metric with its interval and the other console metrics; then, when the store
-    has an fps, the operating point; then where the run is (names and order: the catalogue)."""
-    from ..evaluate.catalogue import CATALOGUE, console
-
-    m = res.metrics
-
-    def shown(name: str) -> str:
-        text = f"{name} {m[name]:.3f}"
-        if f"{name}_lo" in m:
-            text += f" [{m[name + '_lo']:.3f}, {m[name + '_hi']:.3f}]"
-        return text
-
-    names = [n for n in console() if n in m]
-    scores = [shown(n) for n in names if CATALOGUE[n].stage != "operating point"]
-    lines = [f"{PROG}: " + (" · ".join(scores) or "no test metric (see the warnings)")]
-    if "alarm/threshold" in m:
-        budget = float(cfg.get("evaluate", {}).get("budget", 1.0))
-        lines.append(f"  operating point at {budget:g} false alarm(s) per camera-hour on "
-                     f"{m.get('alarm/normal_hours', float('nan')):.2f} h of held-out normal footage: threshold "
-                     f"{m['alarm/threshold']:.3f}, event recall {m.get('alarm/event_recall', float('nan')):.3f}, "
-                     f"{m.get('alarm/false_per_hour', float('nan')):.2f} false alarms per hour of test footage")
-    lines.append(f"  run folder {res.out_dir} (summary.json)")
+    has an fps, the operating point; then where the run is."""
+    budget = float((cfg.get("evaluate") or {}).get("budget", 1.0))
+    lines = [f"{PROG}: " + metric_lines(res.metrics, budget), f"  run folder {res.out_dir} (summary.json)"]
     if res.run_id:
         lines.append(f"  MLflow run {res.run_id}")
     return "\n".join(lines)

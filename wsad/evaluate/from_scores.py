@@ -110,8 +110,8 @@ def evaluate_scores(store: str | Path | FeatureStore, scores: pd.DataFrame | str
         held = scored(store, held_scores, held_per).videos
     ev = evaluate(scored(store, test, frames_per), held, EvaluationSettings(**settings))
     if missing:
-        message = (f"{len(missing)} test video(s) have no scores (e.g. {missing[0]}); they are left out, "
-                   "so the metrics are not comparable with runs that score the whole test split")
-        ev.warnings.insert(0, message)
-        warnings.warn(message, stacklevel=2)
+        ev.warnings.insert(0, f"{len(missing)} test video(s) have no scores (e.g. {missing[0]}); they are left "
+                              "out, so the metrics are not comparable with runs that score the whole test split")
+    for message in ev.warnings:
+        warnings.warn(message, UserWarning, stacklevel=2)
     return ev

@@ -11,6 +11,7 @@ import pandas as pd
 from omegaconf import OmegaConf
 
 from ..checkpoint import save_checkpoint
+from ..evaluate import Evaluation
 from ..evaluate.catalogue import CATALOGUE
 from ..evaluate.det import DET_EVENTS, DET_FRAMES
 from ..files import atomic_path
@@ -38,44 +39,58 @@ def write_text(text: str, path: Path) -> Path:
     return path
 
 
+def write_evaluation(out: Path, ev: Evaluation, name: str, plots: bool) -> None:
+    """The files of an evaluation: test (and held-out) scores, the per-camera alarms, DET points,
+    transfer scores and table, and with ``plots`` roc.png, timelines.png and det.png."""
+    out = Path(out)
+    write_table(ev.test_table(), out / TEST_SCORES)
+    if ev.heldout:
+        write_table(ev.heldout_table(), out / HELDOUT_SCORES)
+    if ev.cameras is not None:
+        write_table(ev.cameras, out / CAMERAS)
+    if ev.det_frames is not None:
+        write_table(ev.det_frames, out / DET_FRAMES)
+        write_table(ev.det_events, out / DET_EVENTS)
+    for t in ev.transfer:
+        write_table(t.table(), out / "scores" / "transfer" / f"{t.name}.parquet")
+    if ev.transfer:
+        write_table(ev.transfer_table(), out / TRANSFER)
+    if plots:
+        draw_plots(out, ev, name)
+
+
+def write_summary(out: Path, metrics: dict, ev: Evaluation, **about) -> Path:
+    """``summary.json``: every final metric with its interval (catalogue order first), the
+    evaluation settings, the warnings, and ``about`` (name, run id, fingerprints)."""
+    return write_text(json.dumps(summary(metrics, ev, **about), indent=1, default=str) + "\n", Path(out) / SUMMARY)
+
+
 class FolderSink(Sink):
     """Writes a finished run into its folder (``outcome.out_dir``)."""
 
     def publish(self, o: Outcome) -> None:
-        out, ev = Path(o.out_dir), o.evaluation
-        write_table(ev.test_table(), out / TEST_SCORES)
+        out = Path(o.out_dir)
+        write_evaluation(out, o.evaluation, o.name, o.plots)
         write_table(pd.DataFrame(o.history), out / HISTORY)
-        if ev.heldout:
-            write_table(ev.heldout_table(), out / HELDOUT_SCORES)
-        if ev.cameras is not None:
-            write_table(ev.cameras, out / CAMERAS)
-        if ev.det_frames is not None:
-            write_table(ev.det_frames, out / DET_FRAMES)
-            write_table(ev.det_events, out / DET_EVENTS)
-        for t in ev.transfer:
-            write_table(t.table(), out / "scores" / "transfer" / f"{t.name}.parquet")
-        if ev.transfer:
-            write_table(ev.transfer_table(), out / TRANSFER)
-        if o.plots:
-            draw_plots(o)
         write_text(OmegaConf.to_yaml(o.config, resolve=True), out / "config" / "resolved.yaml")
         save_checkpoint(out / "model" / "checkpoint.pt", o.scorer, o.config, o.dim)
-        write_text(json.dumps(summary(o), indent=1, default=str) + "\n", out / SUMMARY)
+        write_summary(out, o.metrics, o.evaluation, name=o.name, run_id=o.run_id,
+                      store_fingerprint=o.store_fingerprint,
+                      settings_fingerprint=settings_fingerprint(o.config, o.store_fingerprint), warnings=o.warnings)
 
 
-def summary(o: Outcome) -> dict:
+def summary(metrics: dict, ev: Evaluation, warnings: list[str] | None = None, **about) -> dict:
     """Every final metric with its interval (catalogue order first), the settings, the warnings."""
-    m = o.metrics
+    m = metrics
     names = [n for n in CATALOGUE if n in m] + sorted(k for k in m if k not in CATALOGUE and not _bound(k, m))
-    metrics = {}
+    out = {}
     for n in names:
         entry = {"value": _num(m[n])}
         if f"{n}_lo" in m:
             entry.update(lo=_num(m[f"{n}_lo"]), hi=_num(m[f"{n}_hi"]))
-        metrics[n] = entry
-    return {"format": 1, "name": o.name, "run_id": o.run_id, "store_fingerprint": o.store_fingerprint,
-            "settings_fingerprint": settings_fingerprint(o.config, o.store_fingerprint),
-            "evaluation": o.evaluation.settings.as_dict(), "metrics": metrics, "warnings": list(o.warnings)}
+        out[n] = entry
+    return {"format": 1, **about, "evaluation": ev.settings.as_dict(), "metrics": out,
+            "warnings": list(ev.warnings if warnings is None else warnings)}
 
 
 def _bound(key: str, m: dict) -> bool:
@@ -88,11 +103,10 @@ def _num(x) -> float | None:
     return None if math.isnan(x) else x
 
 
-def draw_plots(o: Outcome) -> None:
-    """roc.png, timelines.png and det.png of the run (matplotlib only when plots are drawn)."""
+def draw_plots(out: Path, ev: Evaluation, name: str) -> None:
+    """roc.png, timelines.png and det.png (matplotlib only when plots are drawn)."""
     from ..evaluate.plots import det_plot, roc_plot, timeline_plot
 
-    out, ev, name = Path(o.out_dir), o.evaluation, o.name
     table = ev.test_table()
     lab = table[table["label"] >= 0]
     if lab["label"].nunique() == 2:

@@ -14,8 +14,8 @@ def load_runs(tracking_uri: str, experiment: str, filter_string: str = "") -> pd
     runs = experiment_runs(tracking_uri, experiment, filter_string)
     rows = []
     for r in runs:
-        if r.info.status != "FINISHED":
-            continue
+        if r.info.status != "FINISHED" or r.data.tags.get("wsad.sweep") == "parent":
+            continue   # a sweep's parent run holds no result of its own
         row = {"run_id": r.info.run_id, "run_name": r.info.run_name, "start_time": r.info.start_time}
         row.update({f"params.{k}": v for k, v in r.data.params.items()})
         row.update({f"metrics.{k}": v for k, v in r.data.metrics.items()})

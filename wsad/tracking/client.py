@@ -20,11 +20,16 @@ _LOCK = threading.Lock()
 
 
 def client(uri: str):
-    """One MLflow client per tracking URI in this process."""
+    """One MLflow client per tracking URI in this process. A SQLite store is made whole first
+    (:func:`wsad.tracking.sqlite.ensure_sqlite_store`): a client migrates the store it opens,
+    and a process killed midway would leave a store that no longer opens."""
     import mlflow
+
+    from .sqlite import ensure_sqlite_store
 
     with _LOCK:
         if uri not in _CLIENTS:
+            ensure_sqlite_store(uri)
             _CLIENTS[uri] = mlflow.MlflowClient(uri)
         return _CLIENTS[uri]
 

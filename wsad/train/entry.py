@@ -8,6 +8,7 @@ from omegaconf import DictConfig, OmegaConf
 
 from ..checkpoint import load_checkpoint
 from ..errors import WsadError
+from ..publish import Sink
 from ..tracking import resolve_uri
 from .run import CAUGHT, RunResult, own, train_one_stage
 from .self_training import train_two_stages
@@ -15,19 +16,20 @@ from .setup import apply_ablation, seed_everything
 from .transfer import transfer_stores
 
 
-def train(cfg: DictConfig, overrides: list[str] | None = None) -> RunResult:
+def train(cfg: DictConfig, overrides: list[str] | None = None, sinks: list[Sink] | None = None) -> RunResult:
     """Train, evaluate and publish one run; returns its :class:`RunResult`.
 
     ``trainer.resume=RUN_ID`` continues an interrupted run from its last saved
     state, with the configuration it was started with. A config with a
     ``self_training`` block runs two stages in the one run (:mod:`.self_training`).
-    wsad's own warnings (a small weak validation, skipped metrics) are shown once, at the end,
-    and kept in the result and the run folder's ``summary.json``."""
+    ``sinks``: where else the run is published, after its folder and MLflow
+    (:class:`wsad.publish.Sink`). wsad's own warnings (a small weak validation, skipped
+    metrics) are shown once, at the end, and kept in the result and ``summary.json``."""
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("default")
         token = CAUGHT.set(caught)
         try:
-            res = _train(cfg, overrides)
+            res = _train(cfg, overrides, list(sinks or []))
         finally:
             CAUGHT.reset(token)
             others = [w for w in caught if not own(w)]
@@ -38,7 +40,7 @@ def train(cfg: DictConfig, overrides: list[str] | None = None) -> RunResult:
     return res
 
 
-def _train(cfg: DictConfig, overrides: list[str] | None) -> RunResult:
+def _train(cfg: DictConfig, overrides: list[str] | None, sinks: list[Sink]) -> RunResult:
     state = None
     if cfg.trainer.get("resume"):
         cfg, state = resume_point(cfg)
@@ -47,8 +49,8 @@ def _train(cfg: DictConfig, overrides: list[str] | None) -> RunResult:
     seed_everything(int(cfg.seed), cfg.trainer.threads)
     transfer = transfer_stores(cfg)  # a wrong transfer store fails now, not after the training
     if cfg.get("self_training"):
-        return train_two_stages(cfg, overrides, state, transfer)
-    return train_one_stage(cfg, overrides, state, transfer)
+        return train_two_stages(cfg, overrides, state, transfer, sinks)
+    return train_one_stage(cfg, overrides, state, transfer, sinks)
 
 
 def resume_point(cfg: DictConfig) -> tuple[DictConfig, dict]:

@@ -15,7 +15,7 @@ from pathlib import Path
 from omegaconf import DictConfig
 
 from ..evaluate import Evaluation, EvaluationSettings, evaluate, scored
-from ..publish import FolderSink, Outcome, Sinks
+from ..publish import FolderSink, Outcome, Sink, Sinks
 from ..store import FeatureStore, store_fingerprint
 from ..tracking import TrackingUnavailable
 from .loop import choose_epochs, fit
@@ -55,19 +55,19 @@ class RunResult:
     warnings: list[str] = field(default_factory=list)
 
 
-def open_sinks(cfg: DictConfig, overrides, s: Setup) -> Sinks:
-    """The run folder, and MLflow when tracking is on (a new run, or the one being resumed)."""
-    sinks = [FolderSink()]
+def open_sinks(cfg: DictConfig, overrides, s: Setup, extra: list[Sink] | None = None) -> Sinks:
+    """The run folder, MLflow when tracking is on (a new run, or the one being resumed), then ``extra``."""
+    sinks: list[Sink] = [FolderSink()]
     if cfg.tracking.enabled:
         from ..publish.tracked import TrackingSink
 
         sinks.append(TrackingSink(cfg, overrides, str(s.store.root), store_fingerprint(s.store.root),
                                   cfg.trainer.get("resume")))
-    return Sinks(sinks)
+    return Sinks(sinks + list(extra or []))
 
 
 def train_one_stage(cfg: DictConfig, overrides: list[str] | None, state: dict | None,
-                    transfer: list[tuple[str, FeatureStore]]) -> RunResult:
+                    transfer: list[tuple[str, FeatureStore]], extra: list[Sink] | None = None) -> RunResult:
     """One run of one recipe, from ``state`` when it resumes one (see :func:`wsad.train.train`)."""
     logged, chosen, small = cfg, None, None
     if state is None and chooses_epochs(cfg):  # choose the epoch count first, then refit on all
@@ -79,7 +79,7 @@ def train_one_stage(cfg: DictConfig, overrides: list[str] | None, state: dict | 
     if cfg.trainer.select == "weak_val":
         small = too_small(s.store, s.val_videos)
     prog = Progress.start(s) if state is None else Progress.restore(state, s)
-    sinks = open_sinks(logged, overrides, s)
+    sinks = open_sinks(logged, overrides, s, extra)
     resume_path = s.out_dir / "state" / "resume.pt"
     sinks.tag("wsad.resume_checkpoint", str(resume_path.resolve()))
     if small:

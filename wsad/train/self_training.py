@@ -60,12 +60,12 @@ def label_segments(scores: np.ndarray, video_label: int, threshold: float) -> np
 
 
 def train_two_stages(cfg: DictConfig, overrides, state: dict | None,
-                     transfer: list[tuple[str, FeatureStore]]) -> RunResult:
+                     transfer: list[tuple[str, FeatureStore]], extra: list | None = None) -> RunResult:
     first, second = stage_configs(cfg)
     s1 = build(first)
     resumed_stage = int(state.get("stage", 1)) if state is not None else 1
     prog1 = Progress.restore(state, s1) if resumed_stage == 1 and state is not None else Progress.start(s1)
-    sinks = open_sinks(cfg, overrides, s1)
+    sinks = open_sinks(cfg, overrides, s1, extra)
     resume_path = s1.out_dir / "state" / "resume.pt"
     sinks.tag("wsad.resume_checkpoint", str(resume_path.resolve()))
     with closing(sinks, resume_path):
