@@ -137,7 +137,7 @@ def test_magnitude_recipe_separates_feature_magnitudes(demo_store, tmp_path):
     from wsad.store import FeatureStore
 
     res = _train(demo_store, tmp_path, "magnitude")
-    assert "term/magnitude" in res.history[0]
+    assert "term/magnitude" in res.history.columns
     model, _, std = model_from_checkpoint(load_checkpoint(tmp_path / "model" / "checkpoint.pt"))
     store = FeatureStore(demo_store)
     top = {0: [], 1: []}

@@ -77,6 +77,9 @@ def test_wheel_commands_work_from_any_folder(installed, tmp_path):
     res = _run(installed, tmp_path, "wsad-score", "checkpoint=run/model/checkpoint.pt", "data.root=store",
                "out=scores.parquet")
     assert res.returncode == 0 and (tmp_path / "scores.parquet").is_file(), res.stderr
+    res = _run(installed, tmp_path, "wsad-evaluate", "run/scores/test_scores.parquet", "--store", "store",
+               "--heldout", "run/scores/heldout_scores.parquet", "--out", "evaluated", "--no-plots")
+    assert res.returncode == 0 and (tmp_path / "evaluated" / "summary.json").is_file(), res.stderr[-2000:]
     res = _run(installed, tmp_path, "wsad-report", "--tracking-uri", "sqlite:///mlruns.db", "--experiment", "wsad",
                "--out", "report", "--no-plots")
     assert res.returncode == 0 and (tmp_path / "report" / "report.md").is_file(), res.stderr[-2000:]

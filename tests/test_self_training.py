@@ -87,7 +87,7 @@ def test_one_run_holds_both_stages_and_labels_come_from_training_videos(small_st
     assert {"stage1/frame_auc", "stage1/video_threshold", "stage2/frame_auc", "frame_auc"} <= set(m)
     assert len(client.get_metric_history(res.run_id, "stage1/train_loss")) == 3
     assert len(client.get_metric_history(res.run_id, "stage2/train_loss")) == 2
-    assert m["frame_auc"] == res.metrics["frame_auc"] and "term/pseudo_bce" in res.history[0]
+    assert m["frame_auc"] == res.metrics["frame_auc"] and "term/pseudo_bce" in res.history.columns
     assert 0 < m["stage2/pseudo_positive_share"] < 1
     assert "stage1/alarm/false_per_hour" in m and det_made == [1]
     assert (res.out_dir / "scores" / "det_events.csv").is_file()

@@ -86,7 +86,7 @@ def test_folds_choose_the_epochs_then_refit_on_all(small_store, tmp_path):
     res = train(cfg)
     epochs = int(res.metrics["selection/epochs"])
     assert len(res.history) == epochs == res.metrics["selected_epoch"]   # refit: that many epochs
-    assert "weak_val_video_auc" not in res.history[0]                     # on all training videos
+    assert "weak_val_video_auc" not in res.history.columns                     # on all training videos
     assert res.objective == res.metrics["weak_val_video_auc"]
     # the refit standardiser saw every training video, the held-out cameras included
     saved = pd.read_csv(tmp_path / "o" / "scores" / "history.csv")

@@ -10,13 +10,16 @@ turns scores into an evaluation (a value), ``publish`` sends it to the run folde
 and MLflow (``tracking``), ``report`` turns runs into tables and plots.
 
 The notebook surface is imported lazily (``import wsad`` stays cheap):
-``wsad.evaluate_scores`` (scores of any method, evaluated as a run is) and
+``wsad.Study`` (variants x seeds x stores: plan, run, report), ``wsad.load_run`` (a finished
+run as an object), ``wsad.evaluate_scores`` (scores of any method, evaluated as a run is) and
 ``wsad.compose_config`` (the config a run would use; ``wsad.train.train`` runs it).
 """
 __version__ = "0.1.0"
 
 _LAZY = {"evaluate_scores": ("wsad.evaluate.from_scores", "evaluate_scores"),
-         "compose_config": ("wsad.config", "compose_config")}
+         "compose_config": ("wsad.config", "compose_config"),
+         "Study": ("wsad.study", "Study"),
+         "load_run": ("wsad.publish.run", "load_run")}
 
 
 def __getattr__(name: str):

@@ -22,7 +22,12 @@ def save_figure(fig, path: Path, dpi: int = 120, close: bool = True) -> Path:
 
 
 def roc_plot(curves: dict[str, tuple[np.ndarray, np.ndarray]], path: Path, title: str = "") -> Path:
-    """curves: name -> (frame labels, frame scores)."""
+    """:func:`roc_figure` saved to ``path``."""
+    return save_figure(roc_figure(curves, title), path, 120)
+
+
+def roc_figure(curves: dict[str, tuple[np.ndarray, np.ndarray]], title: str = ""):
+    """Frame-level ROC curves; ``curves``: name -> (frame labels, frame scores)."""
     sns.set_theme(style="whitegrid")
     fig, ax = plt.subplots(figsize=(4.6, 4.2))
     for name, (y, s) in curves.items():
@@ -33,7 +38,7 @@ def roc_plot(curves: dict[str, tuple[np.ndarray, np.ndarray]], path: Path, title
            title=title or "frame-level ROC")
     ax.legend(loc="lower right", fontsize=8)
     fig.tight_layout()
-    return save_figure(fig, path, 120)
+    return fig
 
 
 def pick_timeline_videos(videos: list[VideoScores], n: int = 6) -> list[VideoScores]:
@@ -45,9 +50,13 @@ def pick_timeline_videos(videos: list[VideoScores], n: int = 6) -> list[VideoSco
 
 
 def timeline_plot(videos: list[VideoScores], path: Path, title: str = "") -> Path:
-    """Frame scores over time for a few test videos, ground truth shaded."""
+    """:func:`timelines_figure` of a few test videos, saved to ``path``."""
+    return save_figure(timelines_figure(pick_timeline_videos(videos), title), path, 110)
+
+
+def timelines_figure(chosen: list[VideoScores], title: str = ""):
+    """Frame scores over time for some test videos, ground truth shaded."""
     sns.set_theme(style="white")
-    chosen = pick_timeline_videos(videos)
     fig, axes = plt.subplots(len(chosen), 1, figsize=(8, 1.3 * len(chosen) + 0.6), squeeze=False)
     for ax, v in zip(axes[:, 0], chosen):
         fs = v.frame_scores()
@@ -65,7 +74,35 @@ def timeline_plot(videos: list[VideoScores], path: Path, title: str = "") -> Pat
     if title:
         fig.suptitle(title, fontsize=9)
     fig.tight_layout()
-    return save_figure(fig, path, 110)
+    return fig
+
+
+def timeline_figure(traces: dict[str, np.ndarray], truth: np.ndarray | None, title: str = "",
+                    fps: float | None = None, threshold: float | None = None, alarms=None):
+    """One video's frame scores, one line per model (``traces``: name -> frame scores), the
+    ground truth shaded, the alarm threshold dashed and the alarms it raises as bars below
+    (``alarms``: name -> [n, 2] frame intervals); the x axis in seconds when ``fps`` is known."""
+    sns.set_theme(style="white")
+    fig, ax = plt.subplots(figsize=(9, 2.6))
+    n = len(next(iter(traces.values()))) if traces else (len(truth) if truth is not None else 0)
+    scale = 1.0 / fps if fps else 1.0
+    t = np.arange(n) * scale
+    if truth is not None and np.any(truth):
+        ax.fill_between(t, 0, 1, where=np.asarray(truth) > 0, color="tab:red", alpha=0.15, step="post",
+                        label="ground truth")
+    palette = sns.color_palette("tab10", max(1, len(traces)))
+    for (name, scores), col in zip(traces.items(), palette):
+        ax.plot(t, scores, lw=1.1, color=col, label=name)
+        for k, (a, b) in enumerate(np.asarray((alarms or {}).get(name, np.zeros((0, 2)))).reshape(-1, 2)):
+            ax.plot([a * scale, b * scale], [-0.04, -0.04], lw=4, color=col, solid_capstyle="butt",
+                    label="alarms" if k == 0 and len(traces) == 1 else None)
+    if threshold is not None:
+        ax.axhline(threshold, ls="--", c="0.3", lw=0.9, label=f"threshold {threshold:.3f}")
+    ax.set_ylim(-0.08, 1.02)
+    ax.set(xlabel="seconds" if fps else "frame", ylabel="score", title=title)
+    ax.legend(fontsize=7, loc="upper right", ncol=2)
+    fig.tight_layout()
+    return fig
 
 
 def stream_plot(store, videos: list[str], dims: int = 3):
@@ -123,6 +160,11 @@ def event_front(events):
 
 
 def det_plot(curves: dict, path: Path, title: str = "") -> Path:
+    """:func:`det_figure` saved to ``path``."""
+    return save_figure(det_figure(curves, title), path, 110)
+
+
+def det_figure(curves: dict, title: str = ""):
     """The detection error trade-off (Martin et al., Eurospeech 1997) on normal-deviate axes.
 
     ``curves``: name -> (frame points with columns fpr, fnr, threshold; event points with columns
@@ -161,4 +203,4 @@ def det_plot(curves: dict, path: Path, title: str = "") -> Path:
     if title:
         fig.suptitle(title, fontsize=10)
     fig.tight_layout()
-    return save_figure(fig, path, 110)
+    return fig

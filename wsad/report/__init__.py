@@ -1,6 +1,6 @@
 """Runs -> tables with intervals and paired tests (:mod:`.tables`), read from
 MLflow and grouped into variants (:mod:`.runs`), and the figures (:mod:`.plots`)."""
-from .budgets import budget_table
+from ..publish.budgets import budget_table
 from .runs import label_keys, load_runs, varying_params
 from .tables import (
     Report,

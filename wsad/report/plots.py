@@ -15,6 +15,11 @@ from ..evaluate.plots import det_plot, roc_plot, save_figure
 
 
 def metric_plot(rep, metric: str, path: Path) -> Path:
+    return save_figure(metric_figure(rep, metric), path, 120)
+
+
+def metric_figure(rep, metric: str):
+    """One metric per variant: each seed a dot, the mean with its 95% t-interval."""
     sns.set_theme(style="whitegrid")
     t = rep.table[rep.table.metric == metric].reset_index(drop=True)
     runs = rep.runs.dropna(subset=[f"metrics.{metric}"])
@@ -29,7 +34,7 @@ def metric_plot(rep, metric: str, path: Path) -> Path:
     ax.set(xlabel=metric, ylabel="", title=f"{metric} per variant (dots: seeds)")
     ax.legend(loc="best", fontsize=8)
     fig.tight_layout()
-    return save_figure(fig, path, 120)
+    return fig
 
 
 def _one_run_per_variant(rep) -> dict[str, str]:
@@ -79,7 +84,12 @@ def learning_curves(rep, uri: str, path: Path, metric: str) -> Path:
                 seen.add(m.step)
                 rows.append({"variant": r.variant, "seed": r.seed, "epoch": m.step, "metric": name,
                              "value": m.value})
-    df = pd.DataFrame(rows)
+    return save_figure(learning_figure(pd.DataFrame(rows), metric), path, 110)
+
+
+def learning_figure(df: pd.DataFrame, metric: str):
+    """``metric`` and the training loss per epoch, mean over seeds with a 95% band, per variant
+    (``df``: columns variant, seed, epoch, metric, value)."""
     sns.set_theme(style="whitegrid")
     fig, axes = plt.subplots(1, 2, figsize=(11, 3.8))
     for ax, name in zip(axes, (metric, "train_loss")):
@@ -92,10 +102,15 @@ def learning_curves(rep, uri: str, path: Path, metric: str) -> Path:
             for t in ax.get_legend().get_texts():
                 t.set_fontsize(7)
     fig.tight_layout()
-    return save_figure(fig, path, 110)
+    return fig
 
 
 def timelines(scores: dict[str, pd.DataFrame], path: Path, n_videos: int = 4) -> Path:
+    return save_figure(timelines_figure(scores, n_videos), path, 110)
+
+
+def timelines_figure(scores: dict[str, pd.DataFrame], n_videos: int = 4):
+    """The same test videos' scores for each variant (``scores``: variant -> frame table)."""
     first = next(iter(scores.values()))
     per = first.groupby("video").agg(anom=("label", "max"))
     videos = list(per[per.anom == 1].index[: n_videos - 1]) + list(per[per.anom <= 0].index[:1])
@@ -115,7 +130,7 @@ def timelines(scores: dict[str, pd.DataFrame], path: Path, n_videos: int = 4) ->
     axes[0, 0].legend(fontsize=6, loc="upper right", ncol=2)
     axes[-1, 0].set_xlabel("frame")
     fig.tight_layout()
-    return save_figure(fig, path, 110)
+    return fig
 
 
 def all_plots(rep, out: Path, tracking_uri: str | None, headline: str) -> dict[str, Path]:

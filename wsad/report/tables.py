@@ -35,11 +35,12 @@ class Report:
 
 
 def build_report(runs: pd.DataFrame, by: list[str] | None = None, baseline: str | None = None,
-                 metrics: tuple[str, ...] | None = None, alpha: float = 0.05) -> Report:
+                 metrics: tuple[str, ...] | None = None, alpha: float = 0.05, labelled: bool = False) -> Report:
     """Group runs by ``by`` (default: the varying params), aggregate over seeds,
     and pair every variant with ``baseline`` (a variant label, or k=v pairs;
-    default: a variant whose values look like the unchanged recipe, else the first)."""
-    by = varying_params(runs) if by is None else list(by)
+    default: a variant whose values look like the unchanged recipe, else the first).
+    ``labelled``: ``runs`` already holds a ``variant`` column (a study's own labels, in order)."""
+    by = [] if labelled else varying_params(runs) if by is None else list(by)
     metrics = reported() if metrics is None else tuple(metrics)
     metrics = metrics + transfer_columns(runs, metrics)
     for key in by:
@@ -50,14 +51,15 @@ def build_report(runs: pd.DataFrame, by: list[str] | None = None, baseline: str 
     for key in by:
         if f"params.{key}" not in runs.columns:
             runs[f"params.{key}"] = None
-    shown = label_keys(runs, by)
-    runs["variant"] = [label_of({k: r.get(f"params.{k}") for k in shown}) for _, r in runs.iterrows()]
+    if not labelled:
+        shown = label_keys(runs, by)
+        runs["variant"] = [label_of({k: r.get(f"params.{k}") for k in shown}) for _, r in runs.iterrows()]
     runs["seed"] = runs.get("params.seed", pd.Series(["0"] * len(runs)))
-    if "start_time" in runs.columns:
+    if "start_time" in runs.columns and not labelled:
         runs = runs.sort_values("start_time", kind="stable")
     dup = runs.duplicated(["variant", "seed"], keep="last")  # one seed run twice: keep the latest
     runs = runs[~dup].reset_index(drop=True)
-    variants = list(dict.fromkeys(sorted(runs["variant"], key=_baseline_rank)))
+    variants = list(dict.fromkeys(runs["variant"] if labelled else sorted(runs["variant"], key=_baseline_rank)))
     base = _pick_baseline(variants, baseline)
     variants = [base] + [v for v in variants if v != base]
     rows = []

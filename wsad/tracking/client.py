@@ -35,8 +35,13 @@ def client(uri: str):
 
 
 def migrate(path: Path) -> None:
-    """Create a fresh SQLite store at ``path`` (runs MLflow's schema migrations)."""
+    """Create a fresh SQLite store at ``path`` (runs MLflow's schema migrations, quietly)."""
+    import logging
+
     import mlflow
+
+    for name in ("mlflow.store.db.utils", "alembic.runtime.migration"):
+        logging.getLogger(name).setLevel(logging.WARNING)
 
     mlflow.MlflowClient(f"sqlite:///{path}").search_experiments()
 

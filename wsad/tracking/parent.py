@@ -14,6 +14,8 @@ from ..files import atomic_path
 
 #: "host pid path": the file the launching process writes its parent run id into.
 PARENT_FILE = "WSAD_SWEEP_PARENT"
+#: The parent run's id itself (a study sets it in its worker for the duration of one run).
+PARENT_ID = "WSAD_PARENT_RUN_ID"
 
 
 def announce(path: Path) -> None:
@@ -34,6 +36,8 @@ def publish(path: Path, run_id: str) -> None:
 def parent_run_id(timeout: float = 120.0) -> str | None:
     """The parent run of the sweep this process is a trial of (None outside a sweep, or when the
     launcher is gone without making one)."""
+    if os.environ.get(PARENT_ID):
+        return os.environ[PARENT_ID]
     host, pid, where = (os.environ.get(PARENT_FILE, "").split(" ", 2) + ["", "", ""])[:3]
     if not where:
         return None

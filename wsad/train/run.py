@@ -9,13 +9,12 @@ from __future__ import annotations
 import warnings
 from contextlib import contextmanager
 from contextvars import ContextVar
-from dataclasses import dataclass, field
 from pathlib import Path
 
 from omegaconf import DictConfig
 
 from ..evaluate import Evaluation, EvaluationSettings, evaluate, scored
-from ..publish import FolderSink, Outcome, Sink, Sinks
+from ..publish import FolderSink, Outcome, Run, Sink, Sinks
 from ..store import FeatureStore, store_fingerprint
 from ..tracking import TrackingUnavailable
 from .loop import choose_epochs, fit
@@ -40,19 +39,8 @@ def run_warnings(extra: list[str]) -> list[str]:
     return list(dict.fromkeys([str(w.message) for w in caught if own(w)] + list(extra)))
 
 
-@dataclass
-class RunResult:
-    """What a finished run gives back."""
-
-    metrics: dict[str, float]   # everything logged at the end: test metrics of the selected model,
-                                # intervals, video decision, operating point, transfer, selection
-    history: list[dict]         # one row per epoch (also in scores/history.csv)
-    out_dir: Path               # the run folder (summary.json, scores, plots, config, model)
-    run_id: str | None          # the MLflow run, None without tracking
-    objective: float            # what a sweeper maximises: the selected epoch's weak-validation
-                                # video AUC (held-out train cameras), never a test metric
-    evaluation: Evaluation | None = None
-    warnings: list[str] = field(default_factory=list)
+#: What a finished run gives back: a :class:`wsad.publish.Run` (metrics, history, scores, figures).
+RunResult = Run
 
 
 def open_sinks(cfg: DictConfig, overrides, s: Setup, extra: list[Sink] | None = None) -> Sinks:
@@ -139,7 +127,7 @@ def conclude(cfg: DictConfig, s: Setup, prog: Progress, sinks: Sinks, transfer: 
     sinks.publish(outcome)
     sinks.close("FINISHED")
     objective = float(final.get("weak_val_video_auc", -prog.history[-1]["train_loss"]))
-    return RunResult(final, prog.history, s.out_dir, sinks.run_id, objective, ev, said)
+    return Run(s.out_dir, final, list(prog.history), sinks.run_id, objective, ev, said)
 
 
 def selection_metrics(prog: Progress) -> dict[str, float]:

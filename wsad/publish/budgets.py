@@ -11,8 +11,18 @@ from omegaconf import OmegaConf
 from ..errors import WsadError
 from ..evaluate import EvaluationSettings, store_events
 from ..evaluate.alarms import budget_threshold, metrics_at, timelines_from_table
-from ..publish.folder import HELDOUT_SCORES, SUMMARY, TEST_SCORES, TRANSFER
 from ..store import FeatureStore
+from .folder import HELDOUT_SCORES, SUMMARY, TEST_SCORES, TRANSFER
+
+
+def run_settings(summary: dict) -> EvaluationSettings:
+    """The evaluation settings a run's ``summary.json`` records."""
+    return EvaluationSettings(**summary["evaluation"])
+
+
+def run_rules(summary: dict, fps: float):
+    """The alarm rules of a run at ``fps``."""
+    return run_settings(summary).rules(fps)
 
 
 def budget_table(run_dir: str | Path, budgets, on: str | None = None) -> pd.DataFrame:
@@ -24,7 +34,7 @@ def budget_table(run_dir: str | Path, budgets, on: str | None = None) -> pd.Data
     if not (run / SUMMARY).is_file():
         raise WsadError(f"{run} is not a finished run's folder (no {SUMMARY})")
     cfg = OmegaConf.load(run / "config" / "resolved.yaml")
-    settings = EvaluationSettings(**json.loads((run / SUMMARY).read_text())["evaluation"])
+    settings = run_settings(json.loads((run / SUMMARY).read_text()))
     held = pd.read_parquet(run / HELDOUT_SCORES) if (run / HELDOUT_SCORES).is_file() else None
     if held is not None:   # normal videos: every frame labelled 0 (an anomalous one has 1s, or -1 without events)
         held = held[held.groupby("video")["label"].transform("max") == 0]

@@ -1,0 +1,188 @@
+"""What a study shows: its plan, and its seed-aggregated comparison as an object with a rich
+notebook display, text exports and figures."""
+from __future__ import annotations
+
+import math
+from html import escape
+from pathlib import Path
+
+import pandas as pd
+
+from ..errors import WsadError
+from ..report.tables import Report, build_report, latex_table, markdown_table
+
+
+class Plan:
+    """The runs a study implies (``runs``: store, variant, seed, status), and with an effect size
+    the seeds each comparison needs (``seeds``)."""
+
+    def __init__(self, study, effect: float | None, power: float):
+        self.study, self.effect, self.power = study, effect, power
+        self.runs = study.runs()
+        self.seeds = self._seeds() if effect is not None else None
+
+    def _seeds(self) -> pd.DataFrame:
+        from ..report.planning import plan_table
+
+        s = self.study
+        comparisons = max(len(s.variants) - 1, 1)
+        alpha = s.alpha / comparisons    # Holm's first step: the strictest level the study will use
+        tables = []
+        for store, rep in StudyReport(s).reports.items():
+            t = plan_table(rep.table[rep.table.metric == s.primary], rep.baseline, self.effect, self.power, alpha)
+            tables.append(t.assign(store=store, alpha=alpha))
+        return pd.concat(tables, ignore_index=True) if tables else pd.DataFrame()
+
+    def counts(self) -> dict[str, int]:
+        return self.runs.status.value_counts().to_dict()
+
+    def __repr__(self) -> str:
+        c = self.counts()
+        text = (f"study {self.study.name}: {len(self.runs)} runs ({len(self.study.stores)} store(s) x "
+                f"{len(self.study.variants)} variant(s) x {len(self.study.seeds)} seed(s)); "
+                + ", ".join(f"{v} {k}" for k, v in c.items()))
+        if self.seeds is not None and len(self.seeds):
+            text += "\n" + self.seeds.to_string(index=False)
+        return text
+
+    def _repr_html_(self) -> str:
+        head = escape(repr(self).splitlines()[0])
+        seeds = "" if self.seeds is None or not len(self.seeds) else (
+            f"<p>Seeds needed to detect {self.effect:g} in {escape(self.study.primary)} with power {self.power} "
+            f"(paired t at alpha {self.seeds.alpha.iloc[0]:.4g}, the level Holm's adjustment starts from)"
+            "</p>" + self.seeds.drop(columns="alpha").to_html(index=False))
+        return f"<p>{head}</p>{self.runs.drop(columns='folder').to_html(index=False)}{seeds}"
+
+
+class StudyReport:
+    """The comparison of a study's variants over seeds, per store: for each metric, mean, sd and
+    a 95% t-interval per variant, the paired difference with the baseline (by seed) with its
+    interval, paired t and Wilcoxon p, and the Holm-adjusted p (bold where below alpha).
+    ``failures``: the runs that failed, with their errors."""
+
+    def __init__(self, study):
+        self.study = study
+        self.primary = study.primary
+        results = study.results()
+        if results.empty:
+            raise WsadError(f"study {study.name} has no finished run yet; run it first (study.run())")
+        self.reports: dict[str, Report] = {}
+        for store, runs in results.groupby("store", sort=False):
+            self.reports[store] = build_report(runs.reset_index(drop=True), baseline=study.baseline,
+                                               alpha=study.alpha, labelled=True)
+        status = study.runs()
+        self.failures = status[status.status == "failed"][["store", "variant", "seed", "error"]].reset_index(drop=True)
+
+    @property
+    def table(self) -> pd.DataFrame:
+        """Every (store, variant, metric) row."""
+        return pd.concat([r.table.assign(store=s) for s, r in self.reports.items()], ignore_index=True)
+
+    def to_markdown(self, metric: str | None = None) -> str:
+        metric = metric or self.primary
+        parts = []
+        for store, rep in self.reports.items():
+            head = f"**{store}**, {metric}\n\n" if len(self.reports) > 1 else ""
+            parts.append(head + markdown_table(rep, metric))
+        if len(self.failures):
+            parts.append("Failed runs:\n\n" + "\n".join(f"- {r.variant}, seed {r.seed}: {r.error}"
+                                                          for r in self.failures.itertuples()))
+        return "\n\n".join(parts)
+
+    def to_latex(self, metric: str | None = None) -> str:
+        return "\n\n".join(latex_table(rep, metric or self.primary) for rep in self.reports.values())
+
+    def to_csv(self, path: str | Path | None = None) -> str | None:
+        return self.table.to_csv(path, index=False) if path is not None else self.table.to_csv(index=False)
+
+    def __repr__(self) -> str:
+        return self.to_markdown()
+
+    def _repr_html_(self) -> str:
+        html = []
+        for store, rep in self.reports.items():
+            t = rep.table[rep.table.metric == self.primary]
+            if len(self.reports) > 1:
+                html.append(f"<h4>{escape(store)}</h4>")
+            html.append(_html_table(t, rep, self.primary))
+        n = len(next(iter(self.reports.values())).runs.groupby("variant"))
+        html.append(f"<p style='font-size:smaller'>{escape(self.primary)} is the study's primary metric; its "
+                    f"{max(n - 1, 0)} comparison(s) with the baseline are Holm-adjusted (bold: adjusted p &lt; "
+                    f"{self.study.alpha}). Intervals are 95% Student t over seeds; they say how much the result "
+                    "moves with the seed, not with the test set. Other metrics: <code>.to_markdown(metric)</code>."
+                    "</p>")
+        if len(self.failures):
+            html.append("<p><b>Failed runs</b></p>" + self.failures.to_html(index=False))
+        return "".join(html)
+
+    # --- figures ------------------------------------------------------------------------------------
+    def plot(self, metric: str | None = None, store: str | None = None):
+        """``metric`` per variant: each seed a dot, the mean with its 95% t-interval."""
+        from ..report.plots import metric_figure
+
+        return metric_figure(self._report(store), metric or self.primary)
+
+    def plot_roc(self, store: str | None = None):
+        """The frame-level ROC of one seed per variant."""
+        from ..evaluate.plots import roc_figure
+
+        curves = {}
+        for v, run in self._one_per_variant(store).items():
+            known = run.scores[run.scores.label >= 0]
+            curves[v] = (known.label.to_numpy(), known.score.to_numpy())
+        return roc_figure(curves, "frame-level ROC (one seed per variant)")
+
+    def plot_timelines(self, store: str | None = None, videos: int = 4):
+        from ..report.plots import timelines_figure
+
+        return timelines_figure({v: run.scores for v, run in self._one_per_variant(store).items()}, videos)
+
+    def plot_learning_curves(self, metric: str = "weak_val_video_auc", store: str | None = None):
+        """``metric`` and the training loss per epoch, mean over seeds with a 95% band."""
+        from ..publish import Run
+        from ..report.plots import learning_figure
+
+        rows = []
+        for _, r in self._report(store).runs.iterrows():
+            h = Run.from_folder(r.folder).history
+            for name in (metric, "train_loss"):
+                if name in h.columns:
+                    rows += [{"variant": r.variant, "seed": r.seed, "epoch": int(e), "metric": name, "value": v}
+                             for e, v in zip(h.epoch, h[name]) if v == v]
+        return learning_figure(pd.DataFrame(rows), metric)
+
+    def _report(self, store: str | None) -> Report:
+        if store is None:
+            return next(iter(self.reports.values()))
+        if store not in self.reports:
+            raise WsadError(f"no store {store!r} in this study; it has: {', '.join(self.reports)}")
+        return self.reports[store]
+
+    def _one_per_variant(self, store: str | None) -> dict:
+        from ..publish import Run
+
+        runs = self._report(store).runs
+        return {v: Run.from_folder(sub.sort_values("seed").folder.iloc[0])
+                for v, sub in runs.groupby("variant", sort=False)}
+
+
+def _fmt(x) -> str:
+    return "n/a" if x is None or (isinstance(x, float) and math.isnan(x)) else f"{x:.3f}"
+
+
+def _html_table(t: pd.DataFrame, rep: Report, metric: str) -> str:
+    head = ["variant", "n", f"{metric} (mean ± sd)", "95% CI", "Δ vs baseline [95% CI]", "p (Holm)"]
+    rows = []
+    for _, r in t.iterrows():
+        if r["variant"] == rep.baseline:
+            diff, p = "baseline", ""
+        else:
+            diff = f"{r['diff']:+.3f} [{_fmt(r['diff_lo'])}, {_fmt(r['diff_hi'])}]"
+            p = _fmt(r.get("p_holm"))
+            if r.get("significant"):
+                diff, p = f"<b>{diff}</b>", f"<b>{p}</b>"
+        cells = [escape(str(r["variant"])), str(r["n"]), f"{_fmt(r['mean'])} ± {_fmt(r['sd'])}",
+                 f"[{_fmt(r['lo'])}, {_fmt(r['hi'])}]", diff, p]
+        rows.append("<tr>" + "".join(f"<td style='text-align:left'>{c}</td>" for c in cells) + "</tr>")
+    return ("<table><thead><tr>" + "".join(f"<th style='text-align:left'>{escape(h)}</th>" for h in head)
+            + "</tr></thead><tbody>" + "".join(rows) + "</tbody></table>")
