@@ -89,8 +89,9 @@ def test_store_made_in_a_thread_while_the_process_opens_it(tmp_path, monkeypatch
     from wsad import tracking
     from wsad.sweep import PrepareTracking
     from wsad.tracking import sqlite as tracking_store
+    from wsad.tracking.parent import PARENT_FILE
 
-    for name in ("WSAD_LAUNCH_DIR", tracking_store.LAUNCHER_PREPARES, "MLFLOW_TRACKING_URI"):
+    for name in ("WSAD_LAUNCH_DIR", tracking_store.LAUNCHER_PREPARES, "MLFLOW_TRACKING_URI", PARENT_FILE):
         monkeypatch.setenv(name, "")   # what the hook sets for its workers goes away after the test
     monkeypatch.chdir(tmp_path)
     db = tmp_path / "fresh.db"
@@ -112,7 +113,7 @@ def test_worker_waits_for_the_store_its_launcher_makes(tmp_path):
     from wsad.tracking import sqlite as tracking_store
 
     db = tmp_path / "bays.db"
-    code = ("import sys; from wsad.tracking import sqlite; sqlite.ensure_sqlite_store(sys.argv[1]); "
+    code = ("import sys; from wsad.tracking import client; client.ensure_store(sys.argv[1]); "
             "print('mlflow' in sys.modules)")
 
     def worker(launcher_pid: int) -> subprocess.Popen:
@@ -123,7 +124,8 @@ def test_worker_waits_for_the_store_its_launcher_makes(tmp_path):
     waiting = worker(os.getpid())            # this test plays the launcher
     time.sleep(2.0)
     assert waiting.poll() is None and not db.exists()    # still waiting, nothing made
-    tracking_store.ensure_sqlite_store(f"sqlite:///{db}")
+    from wsad.tracking.client import ensure_store
+    ensure_store(f"sqlite:///{db}")
     out, err = waiting.communicate(timeout=60)
     assert waiting.returncode == 0, err[-2000:]
     assert out.split() == ["False"] and not list(tmp_path.glob(".bays.db.*"))

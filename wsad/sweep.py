@@ -43,11 +43,13 @@ class PrepareTracking(Callback):
         if not config.tracking.get("enabled", True):
             return
         uri, experiment = tracking.resolve_uri(str(config.tracking.uri)), str(config.tracking.experiment)
-        sweep_dir = Path(str(config.hydra.sweep.dir))
+        from omegaconf import OmegaConf
+
+        sweep_dir = Path(str(OmegaConf.select(config, "hydra.sweep.dir", default=os.getcwd())))
         sweep_dir.mkdir(parents=True, exist_ok=True)
-        id_file = sweep_dir / ".wsad_parent_run"
+        id_file = sweep_dir / f".wsad_parent_run.{os.getpid()}"
         parent.announce(id_file)
-        overrides = list(config.hydra.overrides.task)
+        overrides = list(OmegaConf.select(config, "hydra.overrides.task", default=[]) or [])
         if not uri.startswith("sqlite:///"):
             self._prepare(uri, experiment, id_file, overrides)
             if self._error is not None:

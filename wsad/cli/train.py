@@ -87,8 +87,41 @@ def check_arguments(argv: list[str], dirs: list[Path]) -> None:
     check_overrides(args)
 
 
+def help_page(dirs: list[Path]) -> str:
+    """What wsad-train does, its recipes (one line each, from their YAML), examples, sweeps."""
+    recipes = []
+    for name in registry.options("recipe", dirs):
+        path = next(p for d in dirs if (p := Path(d) / "recipe" / f"{name}.yaml").is_file())
+        first = [ln[1:].strip() for ln in path.read_text().splitlines()[:3]
+                 if ln.startswith("#") and "@package" not in ln]
+        recipes.append(f"  {name:<14}{first[0] if first else ''}")
+    return f"""usage: wsad-train data.root=STORE [recipe=NAME] [seed=N] [key=value ...] [-m]
+
+Train one MIL variant on a feature store, evaluate it on the test split (frame AUC and AP with
+intervals, the video decision, the operating point at a false-alarm budget) and publish it: the
+run folder (summary.json, scores, plots, checkpoint) and an MLflow run.
+
+recipes (recipe=NAME):
+{chr(10).join(recipes)}
+
+examples:
+  wsad-train data.root=warehouse_store recipe=topk seed=0
+  wsad-train data.root=warehouse_store recipe=windows trainer.epochs=15 objective.cluster_distance=0.1
+  wsad-train -m data.root=warehouse_store recipe=windows sweep=terms seed=0,1,2 hydra/launcher=joblib
+
+settings are Hydra overrides, key=value: groups (recipe=, bags=, head=, pooling=, optim=, schedule=),
+objective.TERM=WEIGHT (0 disables a term), trainer.*, data.*, evaluate.*, tracking.*. -m runs a
+sweep: every combination of comma-separated values, one parent MLflow run with a child per trial.
+
+the full configuration: wsad-train data.root=STORE --cfg job   (Hydra's own help: --hydra-help)
+"""
+
+
 def main() -> None:
     os.environ.setdefault("WSAD_LAUNCH_DIR", os.getcwd())
+    if any(a in ("-h", "--help") for a in sys.argv[1:]):
+        print(help_page(registry.search_dirs(sys.argv[1:])))
+        sys.exit(0)
 
     def prepare() -> None:
         dirs = registry.search_dirs(sys.argv[1:])

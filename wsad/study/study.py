@@ -98,9 +98,11 @@ class Study:
         return Plan(self, effect, power)
 
     # --- running ------------------------------------------------------------------------------------
-    def run(self, jobs: int = 2) -> pd.DataFrame:
+    def run(self, jobs: int = 2, launcher: str | dict | None = None) -> pd.DataFrame:
         """Train every run not done yet (failed ones again), ``jobs`` at a time in worker processes
-        that stay alive for later studies (``jobs=1``: in this process). A failing run becomes a
+        that stay alive for later studies (``jobs=1``: in this process), or with ``launcher`` as
+        scheduler jobs through submitit (``"slurm"``, ``"local"``, or a dict with ``name`` and
+        submitit's parameters, e.g. ``slurm_partition``, ``timeout_min``). A failing run becomes a
         row with its error; the others finish. Returns :meth:`runs`."""
         from .workers import execute, submit
 
@@ -108,10 +110,14 @@ class Study:
         if not todo:
             return self.runs()
         parent = self._parent_run()
-        extra = ["trainer.threads=1"] if jobs > 1 else []
+        extra = ["trainer.threads=1"] if jobs > 1 or launcher else []
         bar = tqdm(total=len(todo), desc=f"study {self.name}", unit="run")
         try:
-            if jobs <= 1:
+            if launcher:
+                for spec, result in self._scheduled(todo, extra, parent, launcher):
+                    self._record(spec, result)
+                    bar.update()
+            elif jobs <= 1:
                 for spec in todo:
                     self._record(spec, execute([*spec.overrides, *extra], str(self.run_folder(spec)), parent))
                     bar.update()
@@ -125,6 +131,26 @@ class Study:
             bar.close()
             self._close_parent(parent)
         return self.runs()
+
+    def _scheduled(self, todo: list[RunSpec], extra: list[str], parent: str | None, launcher):
+        """The runs as submitit jobs (one array), yielding (spec, result) as they end."""
+        import submitit
+
+        from .workers import execute
+
+        opts = {"name": launcher} if isinstance(launcher, str) else dict(launcher)
+        cluster = str(opts.pop("name", "slurm"))
+        if cluster not in ("slurm", "local"):
+            raise WsadError(f"launcher {cluster!r}; use slurm or local")
+        ex = submitit.AutoExecutor(folder=str(self.folder / "submitit" / "%j"), cluster=cluster)
+        ex.update_parameters(**{"timeout_min": 60, "cpus_per_task": 1, **opts})
+        with ex.batch():
+            jobs = [ex.submit(execute, [*s.overrides, *extra], str(self.run_folder(s)), parent) for s in todo]
+        for spec, job in zip(todo, jobs):
+            try:
+                yield spec, job.result()
+            except Exception as err:  # noqa: BLE001 - a job the scheduler lost is that run's failure
+                yield spec, {"ok": False, "error": f"job {job.job_id}: {str(err).splitlines()[0][:300]}"}
 
     def _record(self, spec: RunSpec, result: dict) -> None:
         folder = self.run_folder(spec)

@@ -8,10 +8,9 @@ from pathlib import Path
 
 from .errors import TrackingUnavailable, read_failure, retry
 from .params import BOOKKEEPING, flatten, run_name, run_params, standard_tags
-from .sqlite import ensure_sqlite_store
 
 __all__ = ["TrackingUnavailable", "read_failure", "retry", "BOOKKEEPING", "flatten", "run_name", "run_params",
-           "standard_tags", "ensure_sqlite_store", "prepare", "resolve_uri"]
+           "standard_tags", "prepare", "resolve_uri"]
 
 
 def resolve_uri(uri: str) -> str:
@@ -31,5 +30,4 @@ def prepare(uri: str, experiment: str) -> str:
     """
     from .client import experiment_id
 
-    ensure_sqlite_store(uri)
-    return experiment_id(uri, experiment)
+    return experiment_id(uri, experiment)   # the client makes a SQLite store whole first

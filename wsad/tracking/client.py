@@ -25,13 +25,18 @@ def client(uri: str):
     and a process killed midway would leave a store that no longer opens."""
     import mlflow
 
-    from .sqlite import ensure_sqlite_store
-
     with _LOCK:
         if uri not in _CLIENTS:
-            ensure_sqlite_store(uri)
+            ensure_store(uri)
             _CLIENTS[uri] = mlflow.MlflowClient(uri)
         return _CLIENTS[uri]
+
+
+def ensure_store(uri: str) -> None:
+    """A SQLite store at ``uri`` made whole, safely beside other processes (nothing for a server)."""
+    from .sqlite import ensure_sqlite_store
+
+    ensure_sqlite_store(uri, migrate)
 
 
 def migrate(path: Path) -> None:
@@ -142,6 +147,9 @@ class TrackedRun:
 
 
 def _user() -> str:
+    """The login a run is logged with: the tracking server's account, else this machine's user."""
+    if os.environ.get("MLFLOW_TRACKING_USERNAME"):
+        return os.environ["MLFLOW_TRACKING_USERNAME"]
     try:
         return getpass.getuser()
     except Exception:  # noqa: BLE001 - no user name in some containers

@@ -10,6 +10,7 @@ import os
 import socket
 import threading
 import time
+from collections.abc import Callable
 from pathlib import Path
 
 #: "host pid path": the launching process of a sweep is making the SQLite store at path
@@ -46,7 +47,7 @@ def _alive(pid: int) -> bool:
     return True
 
 
-def ensure_sqlite_store(uri: str) -> None:
+def ensure_sqlite_store(uri: str, migrate: Callable[[Path], None]) -> None:
     """Create a fresh SQLite tracking store off to the side and move it into place.
 
     MLflow migrates a new store's schema in many steps; a process killed midway, or a
@@ -54,19 +55,18 @@ def ensure_sqlite_store(uri: str) -> None:
     Built under a temporary name and linked into place only when complete (a link
     never overwrites: the first complete store wins), the store at ``uri`` is always
     either absent or whole. One thread of a process at a time: a sweep's launching thread
-    (:class:`wsad.sweep.PrepareTracking`) and a run in the same process may both get here."""
+    (:class:`wsad.sweep.PrepareTracking`) and a run in the same process may both get here.
+    ``migrate(path)`` makes a fresh store at ``path`` (:func:`wsad.tracking.client.migrate`)."""
     if not uri.startswith("sqlite:///"):
         return
     path = Path(uri[len("sqlite:///"):])
     with _PREPARING:
         _wait_for_launcher(path)
         if not path.exists():
-            _migrate_beside(path)
+            _migrate_beside(path, migrate)
 
 
-def _migrate_beside(path: Path) -> None:
-    from .client import migrate
-
+def _migrate_beside(path: Path, migrate: Callable[[Path], None]) -> None:
     path.parent.mkdir(parents=True, exist_ok=True)
     tmp = path.with_name(f".{path.name}.{os.getpid()}-{threading.get_ident()}.init")
     tmp.unlink(missing_ok=True)
