@@ -81,7 +81,7 @@ def test_report_display_and_exports(study):
     plan = s.plan(effect=0.05)
     assert plan.counts() == {"done": 4, "failed": 2}
     seeds = plan.seeds[plan.seeds.metric == "frame_auc"]
-    assert len(seeds) == 2 and seeds.alpha.iloc[0] == pytest.approx(0.05 / 2)   # Holm's strictest step
+    assert len(seeds) == 1 and seeds.alpha.iloc[0] == pytest.approx(0.05 / 2)   # Holm's strictest step
 
 
 def test_presets_expand_from_python(small_store, tmp_path):

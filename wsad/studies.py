@@ -1,72 +1,27 @@
-"""Multi-run studies from Python (notebooks): a sweep over composed configs run in
-parallel processes, and the window-order study over the generator's correlation knobs."""
+"""The window-order study over the generator's correlation knobs (notebook 04): a
+:class:`wsad.Study` over one store per knob value, read back here, and the effect of order
+tested only where both orders learn."""
 from __future__ import annotations
 
-import os
 from pathlib import Path
 
 import numpy as np
 import pandas as pd
-from joblib import Parallel, delayed
-from tqdm.auto import tqdm
 
 from .report.stats import holm, paired_tests, t_interval
 
 
-def _one_run(overrides: list[str]) -> dict:
-    os.environ.setdefault("OMP_NUM_THREADS", "1")
-    from .config import compose_config
-    from .train import train
-
-    res = train(compose_config(overrides))
-    return {**res.metrics, "out_dir": str(res.out_dir), "run_id": res.run_id,
-            "returned": res.objective, "overrides": " ".join(overrides)}
-
-
-def run_many(override_sets: list[list[str]], jobs: int = 2, desc: str = "runs") -> pd.DataFrame:
-    """Train one run per override list, ``jobs`` processes at a time; one row per run.
-
-    The tracking store (if any) is created once here, before the workers start."""
-    from . import tracking
-    from .config import compose_config
-
-    first = compose_config(override_sets[0])
-    if first.tracking.enabled:
-        tracking.prepare(tracking.resolve_uri(str(first.tracking.uri)), str(first.tracking.experiment))
-    extra = ["trainer.progress=false"] + (["trainer.threads=1"] if jobs > 1 else [])
-    todo = [list(o) + extra for o in override_sets]
-    if jobs <= 1:
-        rows = [_one_run(o) for o in tqdm(todo, desc=desc)]
-    else:
-        rows = Parallel(n_jobs=jobs, return_as="generator")(delayed(_one_run)(o) for o in todo)
-        rows = list(tqdm(rows, total=len(todo), desc=desc))
-    return pd.DataFrame(rows)
-
-
-def order_study(work: str | Path, knob: str, values: list, seeds: list[int],
-                scenario_overrides: list[str] | None = None,
-                train_overrides: list[str] | None = None, jobs: int = 2) -> pd.DataFrame:
-    """For each value of a generator knob (e.g. ``rho``), generate a store and
-    train the windows recipe with ``bags.order`` sequential and shuffled over
-    ``seeds``. Returns one row per (value, seed, order) with the test metrics."""
-    from .synthetic import generate_store, load_scenario
-
-    work = Path(work)
-    sets, keys = [], []
-    for v in values:
-        root = work / f"{knob}_{v}"
-        if not (root / "store.json").exists():
-            generate_store(load_scenario("warehouse", list(scenario_overrides or []) + [f"{knob}={v}"]),
-                           root, progress=False)
-        for seed in seeds:
-            for order in ("sequential", "shuffled"):
-                sets.append([f"data.root={root}", "recipe=windows", f"bags.order={order}",
-                             f"seed={seed}", "tracking.enabled=false", "trainer.bootstrap=0",
-                             f"trainer.out_dir={work}/runs/{knob}_{v}/{order}/{seed}",
-                             *(train_overrides or [])])
-                keys.append({"knob": knob, "value": v, "seed": seed, "order": order})
-    res = run_many(sets, jobs=jobs, desc=f"order study over {knob}")
-    return pd.concat([pd.DataFrame(keys), res[["frame_auc", "frame_ap", "video_auc"]]], axis=1)
+def order_results(study) -> pd.DataFrame:
+    """A window-order study's finished runs (a :class:`wsad.Study` over stores named
+    ``knob=value``, variants ``bags.order`` sequential and shuffled) as one row per
+    (knob, value, seed, order) with the test metrics."""
+    res = study.results()
+    if res.empty:
+        return pd.DataFrame(columns=["knob", "value", "seed", "order", "frame_auc"])
+    knob_value = res.store.str.split("=", n=1, expand=True)
+    return pd.DataFrame({"knob": knob_value[0], "value": pd.to_numeric(knob_value[1]), "seed": res.seed.astype(int),
+                         "order": res["params.bags.order"], "frame_auc": res["metrics.frame_auc"],
+                         "frame_ap": res.get("metrics.frame_ap"), "video_auc": res.get("metrics.video_auc")})
 
 
 #: A setting speaks about order only where both arms learn: the lower end of each arm's 95%

@@ -115,6 +115,35 @@ class StudyReport:
             html.append("<p><b>Failed runs</b></p>" + self.failures.to_html(index=False))
         return "".join(html)
 
+    def conclusion(self, metric: str | None = None) -> str:
+        """What the table supports, in words: per variant, the paired difference with the baseline,
+        its interval and Holm-adjusted p; a difference is claimed only where that p is below alpha,
+        and no comparison is read where the baseline's interval includes chance (AUC metrics)."""
+        metric = metric or self.primary
+        out = []
+        for store, rep in self.reports.items():
+            t = rep.table[rep.table.metric == metric].set_index("variant")
+            where = f" on {store}" if len(self.reports) > 1 else ""
+            base = t.loc[rep.baseline]
+            if "auc" in metric and not base["lo"] > 0.5:
+                out.append(f"{rep.baseline}{where}: its {metric} interval [{_fmt(base['lo'])}, {_fmt(base['hi'])}] "
+                           "includes chance (0.5), so no comparison with it is read here.")
+                continue
+            for variant, r in t.drop(index=rep.baseline).iterrows():
+                ci = f"{r['diff']:+.3f} {metric}, 95% CI [{_fmt(r['diff_lo'])}, {_fmt(r['diff_hi'])}]"
+                p = f"Holm-adjusted p = {_fmt(r.get('p_holm'))}, {int(r['n_pairs'])} seeds"
+                if r.get("significant"):
+                    word = "higher" if r["diff"] > 0 else "lower"
+                    out.append(f"{variant}{where}: {word} than {rep.baseline} ({ci}; {p}).")
+                elif r["diff_lo"] > 0 or r["diff_hi"] < 0:
+                    out.append(f"{variant}{where}: the seed interval of the difference excludes 0 ({ci}), but not "
+                               f"after adjusting for the study's comparisons ({p}); not shown.")
+                else:
+                    out.append(f"{variant}{where}: no difference from {rep.baseline} shown ({ci}; {p}).")
+        out.append(f"Intervals are over seeds on this test set; they do not include test-set sampling. "
+                   f"Significance: Holm-adjusted paired t at alpha {self.study.alpha} on {metric}, the primary metric.")
+        return "\n".join(out)
+
     # --- figures ------------------------------------------------------------------------------------
     def plot(self, metric: str | None = None, store: str | None = None):
         """``metric`` per variant: each seed a dot, the mean with its 95% t-interval."""

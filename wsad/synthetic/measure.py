@@ -102,3 +102,27 @@ def reference_metrics(store: FeatureStore, scorer: str = "signature", split: str
     vids = [VideoScores(v, store.row(v)["group"], store.label(v), score(v), store.frame_labels(v),
                         store.frames(v), store.segment_frames) for v in store.videos(split)]
     return compute_metrics(vids)
+
+
+def camera_share(store: FeatureStore, split: str = "train", label: int = 0, max_videos: int = 400) -> float:
+    """How alike the videos of one camera are: the intra-class correlation ICC(1) of the video
+    mean features with the camera as class (Shrout & Fleiss 1979, one-way random effects),
+    ``(MSB - MSW) / (MSB + (k - 1) MSW)`` per dim with k the mean videos per camera, averaged
+    over dims and clipped to [0, 1]. Normal videos only. On the generator's stores it grows with
+    ``camera_share`` (scene contexts shared by several cameras add to it)."""
+    videos = [v for v in store.videos(split) if store.label(v) == label][:max_videos]
+    means = {v: store.views(v)[0].astype(np.float64).mean(axis=0) for v in videos}
+    groups: dict[str, list[np.ndarray]] = {}
+    for v, m in means.items():
+        groups.setdefault(store.group(v), []).append(m)
+    groups = {g: np.stack(ms) for g, ms in groups.items() if len(ms) >= 2}
+    if len(groups) < 2:
+        raise WsadError(f"camera_share needs at least two cameras with two {split} videos of label {label}")
+    allm = np.concatenate(list(groups.values()))
+    grand = allm.mean(axis=0)
+    n, a = len(allm), len(groups)
+    msb = sum(len(x) * (x.mean(axis=0) - grand) ** 2 for x in groups.values()) / (a - 1)
+    msw = sum(((x - x.mean(axis=0)) ** 2).sum(axis=0) for x in groups.values()) / (n - a)
+    k = (n - sum(len(x) ** 2 for x in groups.values()) / n) / (a - 1)
+    icc = (msb - msw) / np.maximum(msb + (k - 1) * msw, 1e-12)
+    return float(np.clip(np.mean(icc), 0.0, 1.0))
