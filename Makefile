@@ -9,7 +9,7 @@ TORCHVISION_SPEC ?= torchvision==0.28.0
 STAMP := $(VENV)/.installed
 DEMO_DIR ?= demo_out
 
-.PHONY: setup lint test test-slow demo bench bench-quick ui lab clean
+.PHONY: setup lint test test-slow demo docs bench bench-quick ui lab clean
 
 setup: $(STAMP)
 
@@ -37,6 +37,11 @@ test-slow: setup
 demo: setup
 	bash scripts/demo.sh $(DEMO_DIR)
 
+# The documentation site (docs/ + the executed notebooks) into site/; strict: a broken link or
+# a failing notebook fails it. The notebooks run at their defaults (tens of minutes).
+docs: setup
+	$(BIN)/python scripts/build_docs.py --out site
+
 # Performance at research scale (tens of minutes; writes benchmarks/results/full.json) and a
 # reduced run (about 5 minutes; benchmarks/results/quick.json). Stores are generated once
 # into benchmarks/.work (WSAD_BENCH_WORK to move them).
@@ -47,7 +52,7 @@ bench-quick: setup
 	cd benchmarks && ../$(BIN)/python run_all.py quick
 
 clean:
-	rm -rf $(VENV) $(DEMO_DIR) .pytest_cache benchmarks/.work
+	rm -rf $(VENV) $(DEMO_DIR) .pytest_cache benchmarks/.work site
 
 # MLflow UI on the loopback interface only (set UI_HOST to expose it deliberately).
 UI_HOST ?= 127.0.0.1

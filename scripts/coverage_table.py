@@ -1,4 +1,4 @@
-"""The coverage table in the README: how often 95% frame-AUC intervals hold the true AUC on
+"""The coverage table of the docs (docs/results/coverage.md): how often 95% frame-AUC intervals hold the true AUC on
 simulated test sets (wsad.evaluate.coverage), per interval kind and resampling unit.
 
     python scripts/coverage_table.py [REPLICATES]

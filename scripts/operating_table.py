@@ -1,4 +1,4 @@
-"""Operating points of the three main recipes (README "Operating points").
+"""Operating points of the three main recipes (docs/guide/operating-points.md).
 
 usage: python scripts/operating_table.py [--work DIR] [--seeds 0,1,2] [--budgets 0.5,1,5] [--footage default|long]
 Trains each recipe on warehouse 1 (scoring warehouse 2 as a transfer store), then reads every

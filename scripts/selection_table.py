@@ -1,4 +1,4 @@
-"""Selection noise and bias of the model-selection options (README "small collections").
+"""Selection noise and bias of the model-selection options (docs/guide/small-collections.md).
 
 usage: python scripts/selection_table.py [--work DIR] [--seeds 0,1,2]
 For each scenario size and option: the selected model's test frame AUC, mean and sd over

@@ -1,5 +1,7 @@
-"""The notebooks: committed without outputs, run top to bottom (small settings in
-the suite, defaults under -m slow), and JupyterLab answers on loopback."""
+"""The notebooks and the documentation site: committed without outputs, each with a cell tagged
+``parameters`` (the tests inject small values with papermill, the notebooks carry no test
+plumbing), executed top to bottom, and built with the guide into the static site by the same
+code as ``make docs`` (strict: a broken link or a failing notebook fails it). Defaults under -m slow."""
 from __future__ import annotations
 
 import json
@@ -11,33 +13,43 @@ import time
 import urllib.request
 from pathlib import Path
 
+import mlflow
 import nbformat
 import pytest
 from conftest import REPO
-from nbclient import NotebookClient
+
+sys.path.insert(0, str(REPO / "scripts"))
+import build_docs  # noqa: E402
 
 NOTEBOOKS = sorted((REPO / "notebooks").glob("*.ipynb"))
 
 
-def test_there_are_five_walkthroughs():
-    assert [p.stem[:2] for p in NOTEBOOKS] == ["01", "02", "03", "04", "05"]
+def test_there_are_six_walkthroughs():
+    assert [p.stem[:2] for p in NOTEBOOKS] == ["01", "02", "03", "04", "05", "06"]
+    assert set(build_docs.SMALL) == {p.stem for p in NOTEBOOKS}
 
 
 @pytest.mark.parametrize("path", NOTEBOOKS, ids=lambda p: p.stem)
-def test_committed_without_outputs(path):
+def test_committed_without_outputs_or_test_plumbing(path):
     nb = nbformat.read(path, as_version=4)
-    for cell in nb.cells:
-        if cell.cell_type == "code":
-            assert cell.outputs == [] and cell.execution_count is None, f"{path.name} has outputs"
-    first = next(c for c in nb.cells if c.cell_type == "code")
-    assert "SMALL" in first.source  # the first code cell holds the parameters
+    code = [c for c in nb.cells if c.cell_type == "code"]
+    for cell in code:
+        assert cell.outputs == [] and cell.execution_count is None, f"{path.name} has outputs"
+        assert "WSAD_NOTEBOOK" not in cell.source and "SMALL" not in cell.source
+    assert "parameters" in code[0].metadata.get("tags", [])     # papermill injects after this cell
+    text = "\n".join(c.source for c in nb.cells)
+    if path.stem[:2] in ("03", "05", "06"):                      # the responsible-use note
+        assert "data-protection law" in text and "human review" in text
 
 
-def _execute(path: Path, cwd: Path) -> nbformat.NotebookNode:
-    nb = nbformat.read(path, as_version=4)
-    NotebookClient(nb, timeout=900, kernel_name="python3",
-                   resources={"metadata": {"path": str(cwd)}}).execute()
-    return nb
+@pytest.fixture(scope="module")
+def site(tmp_path_factory):
+    """The docs tree with its generated pages, every notebook executed (small), the site built."""
+    work = tmp_path_factory.mktemp("docs")
+    tree = build_docs.tree_of(work)
+    executed = build_docs.execute_notebooks(tree / "notebooks", work / "nb", small=True)
+    build_docs.build_site(tree, work / "site")
+    return work, {k: nbformat.read(v, as_version=4) for k, v in executed.items()}
 
 
 def _text(nb) -> str:
@@ -45,7 +57,8 @@ def _text(nb) -> str:
     for c in nb.cells:
         for o in c.get("outputs", []):
             data = o.get("data", {})
-            out.append(str(o.get("text", "")) + str(data.get("text/plain", "")) + str(data.get("text/markdown", "")))
+            out.append(str(o.get("text", "")) + str(data.get("text/plain", "")) + str(data.get("text/markdown", ""))
+                       + str(data.get("text/html", "")))
     return "\n".join(out)
 
 
@@ -53,28 +66,58 @@ def _images(nb) -> int:
     return sum("image/png" in o.get("data", {}) for c in nb.cells for o in c.get("outputs", []))
 
 
-@pytest.mark.parametrize("path", NOTEBOOKS, ids=lambda p: p.stem)
-def test_notebook_runs_small(path, tmp_path, monkeypatch):
-    monkeypatch.setenv("WSAD_NOTEBOOK_SMALL", "1")
-    nb = _execute(path, tmp_path)
-    assert _images(nb) >= 1  # results come as pictures
+def test_the_site_builds_with_every_notebook_executed(site):
+    work, books = site
+    html = (work / "site" / "index.html").read_text()
+    assert "wsad is for ML researchers" in html
+    for name in books:
+        page = (work / "site" / "notebooks" / name / "index.html").read_text()
+        assert "<img" in page or "image/png" in page or "data:image/png" in page, name   # executed, with figures
+    metrics = (work / "site" / "reference" / "metrics" / "index.html").read_text()
+    assert "frame_auc" in metrics and "alarm/false_per_hour" in metrics   # generated from the catalogue
+
+
+@pytest.mark.parametrize("name", [p.stem for p in NOTEBOOKS])
+def test_notebook_shows_its_results(site, name):
+    _, books = site
+    nb = books[name]
+    assert _images(nb) >= 1, name   # results come as pictures
     text = _text(nb)
-    if path.stem.startswith("04"):
-        assert "p-values are Holm-adjusted over the" in text  # the computed conclusion
-        assert (tmp_path / "nb_work" / "04" / "order_effect.png").exists()
-    if path.stem.startswith("05"):
+    if name.startswith("01"):
+        assert "selected epoch" in text and "frame_auc" in text         # the run's card
+    if name.startswith("02"):
+        assert "p (Holm)" in text and "Intervals are over seeds" in text
+    if name.startswith("03"):
+        assert "holds NaN" in text and "features mean nothing" in text and "store ready in" in text
+    if name.startswith("04"):
+        assert "p-values are Holm-adjusted over the" in text           # the computed conclusion
+    if name.startswith("05"):
         assert "at the warehouse-1 threshold" in text and "| warehouse 2 | topk | 5.000 |" in text
-        assert (tmp_path / "nb_work" / "05" / "operating_points.png").exists()
-    if path.stem.startswith("03"):
-        assert "(exit 2)" in text and "holds NaN" in text and "wsad-score:" in text
-        assert "features mean nothing" in text and "store ready in" in text   # from footage, warned
+    if name.startswith("06"):
+        assert "lag-1 autocorrelation" in text and "p (Holm)" in text
+
+
+def test_running_the_ablation_again_trains_nothing(site):
+    """Notebook 02 is a Study, .run(), .report(): executed a second time in the same folder it
+    trains nothing and adds no MLflow run."""
+    work, _ = site
+    uri = f"sqlite:///{work / 'nb' / 'nb_work' / '02' / 'mlruns.db'}"
+    client = mlflow.MlflowClient(uri)
+    exp = client.get_experiment_by_name("terms_ablation")
+    before = {r.info.run_id for r in client.search_runs([exp.experiment_id])}
+    assert len(before) == 3 * 2 + 1                               # 3 variants x 2 seeds and the study's parent
+    build_docs.execute_notebooks(work / "again", work / "nb", small=True, only=["02_ablation_study"])
+    assert {r.info.run_id for r in client.search_runs([exp.experiment_id])} == before
 
 
 @pytest.mark.slow
 @pytest.mark.parametrize("path", NOTEBOOKS, ids=lambda p: p.stem)
-def test_notebook_runs_with_defaults(path, tmp_path, monkeypatch):
-    monkeypatch.delenv("WSAD_NOTEBOOK_SMALL", raising=False)
-    assert _images(_execute(path, tmp_path)) >= 1
+def test_notebook_runs_with_defaults(path, tmp_path):
+    import papermill
+
+    out = tmp_path / path.name
+    papermill.execute_notebook(str(path), str(out), cwd=str(tmp_path), kernel_name="python3", progress_bar=False)
+    assert _images(nbformat.read(out, as_version=4)) >= 1
 
 
 def _free_port() -> int:

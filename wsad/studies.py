@@ -77,6 +77,7 @@ def order_effect_plot(effect: pd.DataFrame, path: Path | None = None):
         from .evaluate.plots import save_figure
 
         save_figure(fig, Path(path), 120, close=False)
+    plt.close(fig)   # shown once, by the returned Figure's own display
     return fig
 
 

@@ -38,6 +38,7 @@ def roc_figure(curves: dict[str, tuple[np.ndarray, np.ndarray]], title: str = ""
            title=title or "frame-level ROC")
     ax.legend(loc="lower right", fontsize=8)
     fig.tight_layout()
+    plt.close(fig)   # shown once, by the returned Figure's own display
     return fig
 
 
@@ -74,6 +75,7 @@ def timelines_figure(chosen: list[VideoScores], title: str = ""):
     if title:
         fig.suptitle(title, fontsize=9)
     fig.tight_layout()
+    plt.close(fig)   # shown once, by the returned Figure's own display
     return fig
 
 
@@ -102,6 +104,7 @@ def timeline_figure(traces: dict[str, np.ndarray], truth: np.ndarray | None, tit
     ax.set(xlabel="seconds" if fps else "frame", ylabel="score", title=title)
     ax.legend(fontsize=7, loc="upper right", ncol=2)
     fig.tight_layout()
+    plt.close(fig)   # shown once, by the returned Figure's own display
     return fig
 
 
@@ -130,6 +133,7 @@ def stream_plot(store, videos: list[str], dims: int = 3):
     axes[-1, 0].set_xlabel(f"segment ({store.segment_frames} frames each)")
     axes[0, 0].legend(fontsize=7, loc="upper right")
     fig.tight_layout()
+    plt.close(fig)   # shown once, by the returned Figure's own display
     return fig
 
 
@@ -203,4 +207,5 @@ def det_figure(curves: dict, title: str = ""):
     if title:
         fig.suptitle(title, fontsize=10)
     fig.tight_layout()
+    plt.close(fig)   # shown once, by the returned Figure's own display
     return fig

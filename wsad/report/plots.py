@@ -34,6 +34,7 @@ def metric_figure(rep, metric: str):
     ax.set(xlabel=metric, ylabel="", title=f"{metric} per variant (dots: seeds)")
     ax.legend(loc="best", fontsize=8)
     fig.tight_layout()
+    plt.close(fig)   # shown once, by the returned Figure's own display
     return fig
 
 
@@ -102,6 +103,7 @@ def learning_figure(df: pd.DataFrame, metric: str):
             for t in ax.get_legend().get_texts():
                 t.set_fontsize(7)
     fig.tight_layout()
+    plt.close(fig)   # shown once, by the returned Figure's own display
     return fig
 
 
@@ -130,6 +132,7 @@ def timelines_figure(scores: dict[str, pd.DataFrame], n_videos: int = 4):
     axes[0, 0].legend(fontsize=6, loc="upper right", ncol=2)
     axes[-1, 0].set_xlabel("frame")
     fig.tight_layout()
+    plt.close(fig)   # shown once, by the returned Figure's own display
     return fig
 
 

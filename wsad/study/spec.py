@@ -4,6 +4,7 @@ again instead of trained again)."""
 from __future__ import annotations
 
 import itertools
+import re
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -41,7 +42,15 @@ def _text(v: Any) -> str:
         return "null"
     if isinstance(v, (list, tuple)):
         return "[" + ",".join(_text(x) for x in v) + "]"
-    return str(v)
+    return quote(str(v))
+
+
+def quote(text: str) -> str:
+    """A value as Hydra's override grammar reads it back unchanged (quoted when it holds
+    characters the grammar gives a meaning, e.g. a path with ``=`` or ``,``)."""
+    if not re.search(r"[=,\[\]{}()'\"\s\\$]", text):
+        return text
+    return "'" + text.replace("\\", "\\\\").replace("'", "\\'") + "'"
 
 
 def preset(name: str) -> tuple[list[dict], list[int] | None]:

@@ -15,7 +15,7 @@ import pandas as pd
 from tqdm.auto import tqdm
 
 from ..errors import WsadError
-from .spec import RunSpec, as_overrides, expand_variants, label, stores_of
+from .spec import RunSpec, as_overrides, expand_variants, label, quote, stores_of
 
 ERROR = "error.txt"
 
@@ -65,7 +65,8 @@ class Study:
             fp = store_fingerprint(root)
             for values in self.variants:
                 for seed in self.seeds:
-                    overrides = (f"data.root={root}", *self.base, *extra, *as_overrides(values), f"seed={seed}")
+                    overrides = (f"data.root={quote(root)}", *self.base, *extra, *as_overrides(values),
+                                 f"seed={seed}")
                     cfg = compose_config(list(overrides))
                     out.append(RunSpec(root, store_name, label(values), tuple(values.items()), seed,
                                        overrides, settings_fingerprint(cfg, fp)))

@@ -20,7 +20,11 @@ _POOLS: dict[int, ProcessPoolExecutor] = {}
 
 
 def _warm() -> None:
-    """Import what every run needs once per worker."""
+    """Import what every run needs once per worker. Ctrl-C (or a kernel interrupt) reaches the
+    process group: the parent decides, the workers do not die mid-run with a traceback."""
+    import signal
+
+    signal.signal(signal.SIGINT, signal.SIG_IGN)
     os.environ.setdefault("MLFLOW_DISABLE_TELEMETRY", "true")
     import torch
 
@@ -39,6 +43,7 @@ def execute(overrides: list[str], out_dir: str, parent: str | None = None) -> di
     from ..config import compose_config
     from ..errors import WsadError
     from ..train import train
+    from .spec import quote
 
     started = time.perf_counter()
     if parent:
@@ -46,7 +51,7 @@ def execute(overrides: list[str], out_dir: str, parent: str | None = None) -> di
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")   # the run keeps its own warnings in summary.json
-            res = train(compose_config([*overrides, f"trainer.out_dir={out_dir}", "trainer.progress=false"]))
+            res = train(compose_config([*overrides, f"trainer.out_dir={quote(out_dir)}", "trainer.progress=false"]))
         return {"ok": True, "error": None, "seconds": time.perf_counter() - started, "run_id": res.run_id}
     except WsadError as err:
         return {"ok": False, "error": str(err), "seconds": time.perf_counter() - started, "run_id": None}

@@ -67,7 +67,7 @@ def too_small(store, val_videos: list[str]) -> str | None:
                 f"of a class): near 0.8 its video AUC has a standard error of about "
                 f"{auc_standard_error(0.8, max(1, n_pos), max(1, n_neg)):.2f}, "
                 "so the selected epoch is close to chance; trainer.select=last was steadier on collections this "
-                "small (README, \"Small collections\")")
+                "small (docs: \"Small collections\")")
     return None
 
 
