@@ -20,7 +20,7 @@ from _common import machine, size_arg
 from tqdm.auto import tqdm
 
 SCRIPTS = ["train_floor.py", "cluster_term.py", "evaluation.py", "memory.py", "scaling.py", "extract.py",
-           "sweep.py"]
+           "sweep.py", "study.py"]
 
 # key, goal, "max" (value must be <=) or "min" (>=), what it measures
 GOALS = [
@@ -39,6 +39,8 @@ GOALS = [
     ("sweep.efficiency_long", None, None, "the same sweep with 5x the epochs"),
     ("run.overhead_s.cold", 6.0, "max", "one wsad-train process: wall - epoch compute, s (median)"),
     ("run.overhead_s.warm", 1.5, "max", "per run in a warm sweep worker: wall - epoch compute, s"),
+    ("study.efficiency_warm", 0.8, "min", "the demo's 6 runs as a Study on 2 warm workers: compute / workers / wall"),
+    ("study.overhead_s_per_run", None, None, "that study: (wall x workers - compute) / runs, s"),
 ]
 
 

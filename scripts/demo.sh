@@ -31,7 +31,7 @@ sweep() {  # name, then wsad-train overrides
     hydra/launcher=joblib hydra.launcher.n_jobs="$JOBS" tracking.uri="$URI" \
     tracking.experiment="$name" hydra.sweep.dir="$OUT/runs_$name" "$@" > "$OUT/$name.log" 2>&1 \
     || { echo "sweep failed; see $OUT/$name.log"; tail -5 "$OUT/$name.log"; exit 1; }
-  grep -c "^wsad-train:" "$OUT/$name.log" | xargs -I{} echo "   {} runs finished (log: $OUT/$name.log)"
+  grep -c "^  run folder" "$OUT/$name.log" | xargs -I{} echo "   {} runs finished (log: $OUT/$name.log)"
   touch "$OUT/.done_$name"
 }
 

@@ -46,3 +46,6 @@ def test_every_benchmark_runs_at_tiny_size(tmp_path):
     assert 0 < sw["import_floor_s"] and sw["efficiency_bound"] <= 1
     assert len(result["run"]["warm_each_s"]) == 2 and result["run"]["overhead_s"]["warm"] > 0
     assert result["run"]["overhead_s"]["cold"] > 0
+    st = result["study"]   # the warm study's six runs, each with its epoch compute recorded
+    assert st["runs"] == 6 and 0 < st["compute_s"] and 0 < st["efficiency_warm"] <= 1
+    assert st["efficiency_warm"] == st["compute_s"] / 2 / st["wall_s"]

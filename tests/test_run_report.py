@@ -196,3 +196,17 @@ def test_evaluate_command_writes_the_report_folder(small_store, tracked, tmp_pat
         bad = cli(*args)
         lines = [ln for ln in bad.stderr.splitlines() if ln.strip()]
         assert bad.returncode == 2 and len(lines) == 1 and expect in lines[0], bad.stderr
+
+
+def test_train_help_is_a_page_of_its_own():
+    code = "import sys; from wsad.cli.train import main; sys.argv=['wsad-train','--help']; main()"
+    res = subprocess.run([sys.executable, "-c", code], capture_output=True, text=True, timeout=120)
+    assert res.returncode == 0, res.stderr
+    from wsad.registry import options
+
+    lines = res.stdout.splitlines()
+    for recipe in options("recipe"):   # every recipe in one line, read from its YAML
+        (line,) = [ln for ln in lines if ln.startswith(f"  {recipe} ")]
+        assert len(line.split()) > 4
+    assert "examples:" in res.stdout and "wsad-train -m " in res.stdout and "--cfg job" in res.stdout
+    assert len(lines) < 40 and "hydra/launcher" in res.stdout

@@ -41,7 +41,8 @@ class TrainerSettings:
     bootstrap_by: Optional[str] = _f(None, "the unit intervals treat as independent: video, group (camera), "
                                      "or null: group when the test split has >= 10 cameras", ("video", "group", None))
     interval: str = _f("clustered", "frame AUC interval: clustered (Obuchowski 1997 variance, t on clusters - 1) "
-                       "or percentile (cluster bootstrap)", ("clustered", "percentile"))
+                       "or logit (the same on the logit scale), percentile, bc or bca (cluster bootstrap)",
+                       ("clustered", "logit", "percentile", "bc", "bca"))
     eval_every: int = _f(1, "test metrics every N epochs, for the learning curves only", bookkeeping=True)
     resume: Optional[str] = _f(None, "an MLflow run id to continue", bookkeeping=True)
     progress: bool = _f(True, "show the progress bar", bookkeeping=True)
@@ -64,6 +65,8 @@ class EvaluateSettings:
                        "training videos)")
     min_alarm_s: float = _f(0.0, "alarms shorter than this (seconds) are dropped")
     merge_gap_s: float = _f(0.0, "alarms closer than this (seconds) are merged")
+    budget_confidence: Optional[float] = _f(None, "null: the threshold keeps the held-out rate within the budget; "
+                                            "a level (0.95): keeps its exact Poisson upper bound within it")
     stores: list = _f([], "other stores (same feature dim) whose test splits the selected model is scored on")
 
 

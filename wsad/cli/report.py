@@ -20,7 +20,8 @@ def _main(argv: list[str]) -> int:
                     "(default: every param that varies besides the seed)")
     ap.add_argument("--filter", default="", help="an MLflow filter string, e.g. \"params.recipe_name = 'topk'\"")
     ap.add_argument("--baseline", default=None, help="the variant to pair against, e.g. ablation.toggle=none")
-    ap.add_argument("--metric", default="frame_auc", help="headline metric for the plots")
+    ap.add_argument("--metric", default="frame_auc", help="the primary metric: its comparisons are Holm-adjusted "
+                    "and may be marked significant; the others are secondary (and the plots' headline)")
     ap.add_argument("--alpha", type=float, default=0.05)
     ap.add_argument("--out", required=True, help="folder for report.md/.csv/.tex and plots")
     ap.add_argument("--no-plots", action="store_true")
@@ -31,7 +32,8 @@ def _main(argv: list[str]) -> int:
     uri = resolve_uri(args.tracking_uri)
     runs = load_runs(uri, args.experiment, args.filter)
     by = [b.strip() for b in args.by.split(",")] if args.by else None
-    rep = build_report(runs, by=by, baseline=args.baseline, metrics=reported(), alpha=args.alpha)
+    rep = build_report(runs, by=by, baseline=args.baseline, metrics=reported(), alpha=args.alpha,
+                       primary=args.metric)
     paths = write_report(rep, args.out, uri, headline=args.metric, plots=not args.no_plots, plan=args.plan)
     print(markdown_table(rep, args.metric))
     if args.plan is not None:  # the plan write_report made

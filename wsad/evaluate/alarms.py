@@ -104,13 +104,42 @@ def alarms_per_hour(frame_scores: list[np.ndarray], threshold: float, fps: float
     return count / (frames / fps / 3600.0)
 
 
+def rate_upper_bound(count: int, hours: float, confidence: float = 0.95) -> float:
+    """The exact one-sided upper confidence bound of a Poisson rate from ``count`` events in
+    ``hours`` (Garwood 1936): chi2_{confidence}(2 (count + 1)) / (2 hours), per hour."""
+    from scipy.special import gammaincinv
+
+    # chi2.ppf(c, 2(n + 1)) / 2 = gammaincinv(n + 1, c): no scipy.stats import on the run's path
+    return float(gammaincinv(count + 1, confidence)) / hours if hours > 0 else float("inf")
+
+
+def hours_needed(budget: float, confidence: float = 0.95) -> float:
+    """Hours of normal footage on which zero alarms put the rate's upper bound at ``budget``:
+    -ln(1 - confidence) / budget (the least footage that can certify the budget at all)."""
+    return float(-np.log(1 - confidence) / budget) if budget > 0 else float("inf")
+
+
+def allowed_alarms(budget: float, hours: float, confidence: float | None = None) -> int:
+    """The most alarms ``hours`` of normal footage may raise within ``budget`` per hour: counts,
+    not float rates (``budget x hours`` is read with a relative tolerance, so 1 per hour on
+    0.9999999999999999 h allows one alarm). With ``confidence``, the most alarms whose exact
+    Poisson upper bound (:func:`rate_upper_bound`) stays within the budget (-1: not even none)."""
+    if confidence is None:
+        return int(np.floor(budget * hours * (1 + 1e-9) + 1e-12))
+    n = -1
+    while rate_upper_bound(n + 1, hours, confidence) <= budget * (1 + 1e-9):
+        n += 1
+    return n
+
+
 def budget_threshold(normal_scores: list[np.ndarray], fps: float, budget: float,
-                     rules: AlarmRules = AlarmRules()) -> float:
-    """The lowest threshold whose alarm rate on ``normal_scores`` (frame scores of videos known
-    to be wholly normal, e.g. held-out normal *training* videos) is within ``budget`` alarms
-    per hour, at it and at every higher candidate (the rate is not monotone in the threshold:
-    raising it can split one alarm into two, so the first crossing from above is kept).
-    Candidates are the distinct scores; above the highest score no alarm is raised."""
+                     rules: AlarmRules = AlarmRules(), confidence: float | None = None) -> float:
+    """The lowest threshold whose alarm count on ``normal_scores`` (frame scores of videos known
+    to be wholly normal, e.g. held-out normal *training* videos) is within ``budget`` alarms per
+    hour (:func:`allowed_alarms`; with ``confidence``, within the budget at that confidence), at
+    it and at every higher candidate (the count is not monotone in the threshold: raising it can
+    split one alarm into two, so the first crossing from above is kept). Candidates are the
+    distinct scores; above the highest score no alarm is raised."""
     if budget < 0:
         raise WsadError(f"evaluate.budget={budget}; give alarms per camera-hour >= 0")
     if not normal_scores or not sum(len(s) for s in normal_scores):
@@ -118,12 +147,18 @@ def budget_threshold(normal_scores: list[np.ndarray], fps: float, budget: float,
     candidates = np.unique(np.concatenate(normal_scores))[::-1]   # high to low
     runs = [_constant_runs(np.asarray(x)) for x in normal_scores]
     hours = sum(len(x) for x in normal_scores) / fps / 3600.0
+    allowed = allowed_alarms(budget, hours, confidence)
     chosen = float(np.nextafter(candidates[0], np.inf))            # no alarm at all
     for t in candidates:
-        if sum(_count_alarms(v, b, float(t), rules) for v, b in runs) / hours > budget:
+        if sum(_count_alarms(v, b, float(t), rules) for v, b in runs) > allowed:
             break
         chosen = float(t)
     return chosen
+
+
+def count_alarms(frame_scores: list[np.ndarray], threshold: float, rules: AlarmRules = AlarmRules()) -> int:
+    """Alarms raised on ``frame_scores`` (one array per video) at ``threshold``."""
+    return sum(_count_alarms(*_constant_runs(np.asarray(x)), float(threshold), rules) for x in frame_scores)
 
 
 def timelines(videos, events: dict[str, np.ndarray]) -> list[tuple]:

@@ -17,7 +17,7 @@ from ..errors import WsadError
 from .metrics import VideoScores, average_precision, roc_auc
 
 UNITS = ("video", "group")
-INTERVALS = ("clustered", "percentile")
+INTERVALS = ("clustered", "logit", "percentile", "bc", "bca")
 
 
 def cluster_ids(videos: list[VideoScores], by: str) -> np.ndarray:
@@ -73,6 +73,73 @@ def clustered_interval(videos: list[VideoScores], by: str = "video",
     a, se, k = clustered_auc(videos, by)
     half = float(special.stdtrit(k - 1, (1 + level) / 2)) * se  # the t quantile
     return max(0.0, a - half), min(1.0, a + half), se, k
+
+
+def logit_interval(videos: list[VideoScores], by: str = "video",
+                   level: float = 0.95) -> tuple[float, float, float, int]:
+    """The clustered interval on the logit scale (delta method: se(logit A) = se / (A (1 - A))),
+    t quantiles on I - 1 degrees of freedom, mapped back: it stays inside (0, 1) and is
+    asymmetric near 1, where the AUC's sampling distribution is skewed. Returns (lo, hi, se, I)."""
+    a, se, k = clustered_auc(videos, by)
+    if not 0 < a < 1:
+        return a, a, se, k
+    half = float(special.stdtrit(k - 1, (1 + level) / 2)) * se / (a * (1 - a))
+    z = np.log(a / (1 - a))
+    return float(special.expit(z - half)), float(special.expit(z + half)), se, k
+
+
+def jackknife_values(videos: list[VideoScores], by: str = "video") -> np.ndarray:
+    """Frame AUC with each cluster left out in turn (the leave-one-out resamples)."""
+    have, pos_t, neg_t = _tables(videos)
+    ids = cluster_ids(have, by)
+    k = int(ids.max()) + 1
+    w = 1.0 - np.eye(k)
+    auc, _ = _auc_ap_from_counts((sparse.csr_matrix(w[:, ids]) @ pos_t).toarray(),
+                                 (sparse.csr_matrix(w[:, ids]) @ neg_t).toarray())
+    return auc
+
+
+def bca_bounds(point: float, boot: np.ndarray, jack: np.ndarray | None, level: float) -> tuple[float, float]:
+    """Bias-corrected (and, with ``jack``, accelerated) bootstrap bounds (Efron 1987, JASA 82):
+    z0 = Phi^-1(share of resamples below the estimate), a = sum d^3 / (6 (sum d^2)^1.5) with
+    d the jackknife deviations, and the bounds at Phi(z0 + (z0 + z) / (1 - a (z0 + z)))."""
+    boot = boot[~np.isnan(boot)]
+    share = (np.sum(boot < point) + 0.5 * np.sum(boot == point)) / len(boot)
+    z0 = float(special.ndtri(min(max(share, 1e-6), 1 - 1e-6)))
+    acc = 0.0
+    if jack is not None:
+        d = np.nanmean(jack) - jack[~np.isnan(jack)]
+        denom = 6 * (np.sum(d ** 2)) ** 1.5
+        acc = float(np.sum(d ** 3) / denom) if denom > 0 else 0.0
+    out = []
+    for z in special.ndtri([(1 - level) / 2, (1 + level) / 2]):
+        q = special.ndtr(z0 + (z0 + z) / (1 - acc * (z0 + z)))
+        out.append(float(np.quantile(boot, q)))
+    return out[0], out[1]
+
+
+def macro_auc_interval(videos: list[VideoScores], n_resamples: int, seed: int, by: str = "video",
+                       level: float = 0.95) -> tuple[float, float]:
+    """Percentile interval of the macro AUC (the mean of the anomalous videos' within-video
+    AUCs) over cluster resamples: a resample drawing a cluster k times counts its videos k times."""
+    from .catalogue import per_video_aucs
+
+    keep = [v for v in videos if v.label == 1 and v.frame_labels is not None and 0 < v.frame_labels.sum()
+            < len(v.frame_labels)]
+    aucs = per_video_aucs(keep)
+    all_ids = cluster_ids(videos, by)
+    index = {v.video: i for i, v in enumerate(videos)}
+    ids = all_ids[[index[v.video] for v in keep]]
+    k = int(all_ids.max()) + 1
+    draws = bootstrap_indices(k, n_resamples, seed)
+    counts = np.zeros((n_resamples, k))
+    np.add.at(counts, (np.repeat(np.arange(n_resamples), k), draws.ravel()), 1.0)
+    w = counts[:, ids]                                     # each anomalous video's weight per resample
+    with np.errstate(invalid="ignore", divide="ignore"):
+        means = (w * aucs).sum(axis=1) / w.sum(axis=1)
+    means = means[np.isfinite(means)]
+    lo, hi = np.percentile(means, [(1 - level) / 2 * 100, (1 + level) / 2 * 100])
+    return float(lo), float(hi)
 
 
 def bootstrap_indices(n_videos: int, n_resamples: int, seed: int) -> np.ndarray:
@@ -160,8 +227,9 @@ def grouped_bootstrap(videos: list[VideoScores], n_resamples: int = 1000, seed: 
     """Intervals for frame AUC and AP with the video (``by="video"``) or the camera
     (``by="group"``) as the unit.
 
-    ``interval="clustered"``: :func:`clustered_interval`; ``"percentile"``:
-    the percentile interval of the AUC over ``n_resamples`` cluster resamples.
+    ``interval="clustered"``: :func:`clustered_interval`; ``"logit"``: :func:`logit_interval`;
+    ``"percentile"``: the percentile interval of the AUC over ``n_resamples`` cluster resamples;
+    ``"bc"`` / ``"bca"``: the bias-corrected (and accelerated) bootstrap (:func:`bca_bounds`).
     AP always takes the percentile interval over the resamples.
 
     Returns:
@@ -177,11 +245,14 @@ def grouped_bootstrap(videos: list[VideoScores], n_resamples: int = 1000, seed: 
     lo_a, hi_a = np.percentile(auc[keep], q)
     lo_p, hi_p = np.percentile(ap[keep], q)
     out = {"frame_ap_lo": float(lo_p), "frame_ap_hi": float(hi_p), "bootstrap_kept": int(keep.sum())}
-    lo_c, hi_c, se, k = clustered_interval(videos, by, level)
+    lo_c, hi_c, se, k = (logit_interval if interval == "logit" else clustered_interval)(videos, by, level)
     out["interval_clusters"] = k
-    if interval == "clustered":
+    if interval in ("clustered", "logit"):
         lo_a, hi_a = lo_c, hi_c
         out["frame_auc_se"] = se
+    elif interval in ("bc", "bca"):
+        point = clustered_auc(videos, by)[0]
+        lo_a, hi_a = bca_bounds(point, auc, jackknife_values(videos, by) if interval == "bca" else None, level)
     out.update({"frame_auc_lo": float(lo_a), "frame_auc_hi": float(hi_a)})
     return out
 

@@ -90,6 +90,17 @@ def anomalous_video_auc(t: TestSet) -> float | None:
     return roc_auc(y, s, "anomalous_video_auc") if _both(y) else None
 
 
+def per_video_aucs(videos: list[VideoScores]) -> np.ndarray:
+    """The within-video frame AUC of each anomalous video whose frames hold both classes."""
+    return np.array([roc_auc(v.frame_labels, v.frame_scores()) for v in videos
+                     if v.label == 1 and v.frame_labels is not None and _both(v.frame_labels)])
+
+
+def macro_auc(t: TestSet) -> float | None:
+    aucs = per_video_aucs(t.anomalous)
+    return float(aucs.mean()) if len(aucs) else None
+
+
 def false_alarm_rate(t: TestSet) -> float | None:
     if not t.normal:
         return None
@@ -127,6 +138,9 @@ for _m in (
            reported=True, console=True, interval=True, compute=frame_ap),
     Metric("anomalous_video_auc", "frame AUC over the frames of anomalous test videos only", 1, "",
            reported=True, compute=anomalous_video_auc),
+    Metric("macro_auc", "mean over anomalous test videos of each video's own frame AUC (ranking within a video; "
+           "unmoved by score offsets between videos)", 1, "", reported=True, console=True, interval=True,
+           compute=macro_auc),
     Metric("false_alarm_rate", f"share of normal test videos' frames scored >= {ALARM_THRESHOLD} (a fixed "
            "threshold, not the operating point)", -1, "share", reported=True, compute=false_alarm_rate),
     Metric("video_auc", "ROC AUC of each test video's maximum segment score against the video labels", 1, "",
@@ -158,6 +172,13 @@ for _m in (
            "evaluate.budget alarms per camera-hour", 0, "", "operating point", reported=True, console=True),
     Metric("alarm/normal_hours", "hours of held-out normal training footage the threshold is set on", 0, "h",
            "operating point"),
+    Metric("alarm/false_per_hour_ucb", "one-sided upper confidence bound (exact Poisson, evaluate.budget_confidence "
+           "or 95%) of the held-out normal footage's false-alarm rate at the threshold", -1, "per hour",
+           "operating point", reported=True),
+    Metric("alarm/hours_needed", "hours of normal footage on which zero alarms certify evaluate.budget at that "
+           "confidence", 0, "h", "operating point"),
+    Metric("alarm/worst_camera_false_per_hour", "the test camera with the most false alarms per hour at the "
+           "threshold", -1, "per hour", "operating point", reported=True),
     # model selection (wsad.train)
     Metric("selected_epoch", "the epoch whose model is evaluated", 0, "epoch", "selection"),
     Metric("weak_val_video_auc", "video AUC on held-out training cameras (video labels only) at the selected "

@@ -15,8 +15,17 @@ import numpy as np
 import pandas as pd
 
 from ..errors import WsadError
-from .alarms import AlarmRules, budget_threshold, event_tradeoff, metrics_at, timelines
-from .bootstrap import INTERVALS, UNITS, grouped_bootstrap
+from .alarms import (
+    AlarmRules,
+    budget_threshold,
+    count_alarms,
+    event_tradeoff,
+    hours_needed,
+    metrics_at,
+    rate_upper_bound,
+    timelines,
+)
+from .bootstrap import INTERVALS, UNITS, grouped_bootstrap, macro_auc_interval
 from .catalogue import compute_metrics
 from .decision import choose_video_threshold, video_decision
 from .det import det_points
@@ -40,6 +49,7 @@ class EvaluationSettings:
     budget: float = 1.0
     min_alarm_s: float = 0.0
     merge_gap_s: float = 0.0
+    budget_confidence: float | None = None
     heldout_fitted: bool = False
 
     def __post_init__(self):
@@ -51,14 +61,19 @@ class EvaluationSettings:
             raise WsadError(f"interval={self.interval!r}; use one of {list(INTERVALS)}")
         if self.budget < 0:
             raise WsadError(f"evaluate.budget={self.budget}; give alarms per camera-hour >= 0")
+        if self.budget_confidence is not None and not 0 < self.budget_confidence < 1:
+            raise WsadError(f"evaluate.budget_confidence={self.budget_confidence}; use a level in (0, 1), e.g. "
+                            "0.95, or null")
 
     @classmethod
     def from_config(cls, cfg, heldout_fitted: bool = False) -> EvaluationSettings:
         """The settings a run's config holds."""
         ev = cfg.get("evaluate") or {}
+        conf = ev.get("budget_confidence")
         return cls(int(cfg.trainer.bootstrap), cfg.trainer.get("bootstrap_by"),
                    str(cfg.trainer.get("interval", "clustered")), int(cfg.seed), float(ev.get("budget", 1.0)),
-                   float(ev.get("min_alarm_s", 0.0)), float(ev.get("merge_gap_s", 0.0)), heldout_fitted)
+                   float(ev.get("min_alarm_s", 0.0)), float(ev.get("merge_gap_s", 0.0)),
+                   None if conf is None else float(conf), heldout_fitted)
 
     def as_dict(self) -> dict:
         return {f.name: getattr(self, f.name) for f in fields(self)}
@@ -152,6 +167,9 @@ def evaluate(test: Scored, heldout: list[VideoScores] | None = None,
             by = settings.bootstrap_by or interval_unit(test.videos)
             metrics.update(grouped_bootstrap(test.videos, settings.bootstrap, seed=settings.seed, by=by,
                                              interval=settings.interval))
+            if "macro_auc" in metrics:
+                metrics["macro_auc_lo"], metrics["macro_auc_hi"] = macro_auc_interval(
+                    test.videos, settings.bootstrap, settings.seed, by)
         heldout = list(heldout or [])
         metrics.update(_video_decision(test.videos, heldout))
         ev = Evaluation(metrics, settings, test, heldout)
@@ -194,17 +212,32 @@ def _operating_point(ev: Evaluation) -> None:
         return
     rules = s.rules(fps)
     frames = [v.frame_scores() for v in normal]
-    ev.threshold = budget_threshold(frames, fps, s.budget, rules)
+    ev.threshold = budget_threshold(frames, fps, s.budget, rules, s.budget_confidence)
     hours = sum(len(f) for f in frames) / fps / 3600.0
-    if s.budget * hours < 1:  # fewer than one alarm allowed: the budget means "none at all" here
+    level = s.budget_confidence or 0.95
+    ucb = rate_upper_bound(count_alarms(frames, ev.threshold, rules), hours, level)
+    need = hours_needed(s.budget, level)
+    if s.budget_confidence is not None and hours < need:
+        warnings.warn(f"evaluate.budget={s.budget:g} per camera-hour at confidence {level:g} needs at least "
+                      f"{need:.2f} h of held-out normal footage, this run holds out {hours:.2f} h: the threshold "
+                      "allows no alarm there; hold out more normal video (trainer.weak_val_share)", stacklevel=3)
+    elif s.budget * hours < 1:  # fewer than one alarm allowed: the budget means "none at all" here
         warnings.warn(f"evaluate.budget={s.budget:g} alarms per camera-hour cannot be told from 0 on "
                       f"{hours:.2f} h of held-out normal training footage (the threshold allows no alarm "
                       f"there); hold out more normal video (trainer.weak_val_share) or raise the budget",
                       stacklevel=3)
+    elif ucb > s.budget:
+        warnings.warn(f"at the budget threshold the held-out normal footage's false-alarm rate has a {level:.0%} "
+                      f"upper bound of {ucb:.2f} per hour, above evaluate.budget={s.budget:g}: new footage may "
+                      f"exceed the budget; evaluate.budget_confidence={level:g} keeps the bound within it "
+                      f"(needs at least {need:.2f} h of normal footage)", stacklevel=3)
     metrics, rows = metrics_at(ev._timelines, ev.threshold, fps, rules)
     ev.metrics.update(metrics)
-    ev.metrics["alarm/normal_hours"] = hours
-    ev.cameras = pd.DataFrame(rows)
+    ev.metrics.update({"alarm/normal_hours": hours, "alarm/false_per_hour_ucb": ucb, "alarm/hours_needed": need})
+    cams = pd.DataFrame(rows)
+    cams["false_per_hour_ucb"] = [rate_upper_bound(int(r.false_alarms), r.hours, level) for r in cams.itertuples()]
+    ev.cameras = cams
+    ev.metrics["alarm/worst_camera_false_per_hour"] = float(cams.false_per_hour.max())
 
 
 def _transfer(name: str, path: str, scored: Scored, ev: Evaluation) -> Transfer:

@@ -8,6 +8,17 @@ import pandas as pd
 from scipy import stats
 
 MAX_SEEDS = 1000
+#: The pilot's sd is planned with at its one-sided upper confidence limit at this level (common
+#: practice for pilot-based sample sizes; Browne 1995, Stat. Med. 14, from memory).
+SD_UPPER_LEVEL = 0.8
+
+
+def sd_upper_limit(sd: float, n: int, level: float = SD_UPPER_LEVEL) -> float:
+    """One-sided upper confidence limit of a standard deviation estimated from ``n`` values:
+    sd sqrt((n - 1) / chi2_{1 - level}(n - 1))."""
+    if n < 2 or not sd == sd:
+        return math.nan
+    return float(sd * math.sqrt((n - 1) / stats.chi2.ppf(1 - level, n - 1)))
 
 
 def paired_power(n: int, effect: float, alpha: float = 0.05) -> float:
@@ -35,27 +46,36 @@ def seeds_needed(diff: float, sd: float, power: float = 0.8, alpha: float = 0.05
 
 
 def plan_table(table: pd.DataFrame, baseline: str, diff: float, power: float = 0.8,
-               alpha: float = 0.05) -> pd.DataFrame:
-    """Per variant and metric: the paired sd measured against the baseline, the seeds
-    run, and the seeds needed to detect a difference of ``diff`` (same units as the metric)."""
+               alpha: float = 0.05, comparisons: int | None = None) -> pd.DataFrame:
+    """Per variant and metric: the paired sd measured against the baseline, its upper
+    confidence limit (:func:`sd_upper_limit`: the pilot's sd is itself uncertain), the seeds
+    run, and the seeds needed to detect a difference of ``diff`` (same units as the metric) at
+    the level Holm's adjustment starts from, alpha / ``comparisons`` (default: the variants
+    compared with the baseline), planned with the sd's upper limit."""
+    others = table[table.variant != baseline]
+    m = comparisons or max(1, others.variant.nunique())
     rows = []
-    for _, r in table[table.variant != baseline].iterrows():
+    for _, r in others.iterrows():
         n = int(r.get("n_pairs", 0) or 0)
         sd = float(r["diff_sd"]) if n >= 2 else math.nan
-        need = seeds_needed(diff, sd, power, alpha) if sd == sd else None
+        upper = sd_upper_limit(sd, n)
+        need = seeds_needed(diff, upper, power, alpha / m) if upper == upper else None
         rows.append({"variant": r["variant"], "metric": r["metric"], "seeds_run": n, "paired_sd": sd,
-                     "difference": diff, "seeds_needed": need})
+                     "paired_sd_upper": upper, "difference": diff, "alpha": alpha / m, "seeds_needed": need})
     return pd.DataFrame(rows)
 
 
 def plan_markdown(plan: pd.DataFrame, metric: str, power: float = 0.8, alpha: float = 0.05) -> str:
     p = plan[plan.metric == metric]
+    level = p.alpha.iloc[0] if len(p) else alpha
     lines = [f"Seeds needed to detect a difference of {p.difference.iloc[0] if len(p) else '?'} in {metric} "
-             f"with power {power} at alpha {alpha} (two-sided paired t, noncentral t; the paired sd is the "
-             "one measured here, so the plan is only as good as that estimate):", "",
-             "| variant | seeds run | paired sd | seeds needed |", "|---|---|---|---|"]
+             f"with power {power} at alpha {level:.4g} (the {alpha} of the study divided by its comparisons: the "
+             "level Holm's adjustment starts from; two-sided paired t, noncentral t). The paired sd measured "
+             f"here is uncertain, so the plan uses its {SD_UPPER_LEVEL:.0%} upper confidence limit:", "",
+             "| variant | seeds run | paired sd | its upper limit | seeds needed |", "|---|---|---|---|---|"]
     for _, r in p.iterrows():
         need = "> 1000" if r.seeds_needed is None or r.seeds_needed != r.seeds_needed else int(r.seeds_needed)
         sd = "n/a" if r.paired_sd != r.paired_sd else f"{r.paired_sd:.4f}"
-        lines.append(f"| {r.variant} | {r.seeds_run} | {sd} | {need} |")
+        up = "n/a" if r.paired_sd_upper != r.paired_sd_upper else f"{r.paired_sd_upper:.4f}"
+        lines.append(f"| {r.variant} | {r.seeds_run} | {sd} | {up} | {need} |")
     return "\n".join(lines)

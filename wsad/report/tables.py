@@ -19,7 +19,7 @@ from pathlib import Path
 import pandas as pd
 
 from ..errors import WsadError
-from ..evaluate.catalogue import reported
+from ..evaluate.catalogue import lead, reported
 from .runs import label_keys, label_of, varying_params
 from .stats import holm, paired_tests, t_interval
 
@@ -32,16 +32,23 @@ class Report:
     baseline: str
     alpha: float
     duplicates: int = 0        # runs of a (variant, seed) already present, left out (the latest is kept)
+    primary: str = "frame_auc"  # the metric whose comparisons may be called significant
 
 
 def build_report(runs: pd.DataFrame, by: list[str] | None = None, baseline: str | None = None,
-                 metrics: tuple[str, ...] | None = None, alpha: float = 0.05, labelled: bool = False) -> Report:
+                 metrics: tuple[str, ...] | None = None, alpha: float = 0.05, labelled: bool = False,
+                 primary: str | None = None) -> Report:
     """Group runs by ``by`` (default: the varying params), aggregate over seeds,
     and pair every variant with ``baseline`` (a variant label, or k=v pairs;
     default: a variant whose values look like the unchanged recipe, else the first).
-    ``labelled``: ``runs`` already holds a ``variant`` column (a study's own labels, in order)."""
+    ``labelled``: ``runs`` already holds a ``variant`` column (a study's own labels, in order).
+    ``primary``: the metric the comparison is about (default: the catalogue's lead metric). Its
+    paired t p-values are Holm-adjusted over the comparisons and a difference is *significant*
+    when the adjusted p < alpha; every other metric is *secondary*: its p-values are shown, its
+    differences are never called significant (many metrics, each tested, would find one by luck)."""
     by = [] if labelled else varying_params(runs) if by is None else list(by)
     metrics = reported() if metrics is None else tuple(metrics)
+    primary = primary or lead()
     metrics = metrics + transfer_columns(runs, metrics)
     for key in by:
         if f"params.{key}" not in runs.columns:
@@ -80,10 +87,11 @@ def build_report(runs: pd.DataFrame, by: list[str] | None = None, baseline: str 
         tested = [r for r in rows if r["metric"] == metric and r["variant"] != base]
         for r, p in zip(tested, holm([r["p_t"] for r in tested])):
             r["p_holm"] = p
-            r["significant"] = bool(p == p and p < alpha)
+            r["role"] = "primary" if metric == primary else "secondary"
+            r["significant"] = bool(metric == primary and p == p and p < alpha)
     if not rows:
         raise WsadError(f"the runs log none of the metrics {list(metrics)}")
-    return Report(pd.DataFrame(rows), runs, by, base, alpha, int(dup.sum()))
+    return Report(pd.DataFrame(rows), runs, by, base, alpha, int(dup.sum()), primary)
 
 
 def transfer_columns(runs: pd.DataFrame, metrics: tuple[str, ...]) -> tuple[str, ...]:
@@ -139,12 +147,22 @@ def markdown_table(rep: Report, metric: str) -> str:
         if r["variant"] == rep.baseline:
             diff, pt, ph, pw = "baseline", "", "", ""
         else:
-            diff = f"{r['diff']:+.3f} [{_fmt(r['diff_lo'])}, {_fmt(r['diff_hi'])}]"
+            diff = _diff(r)
             pt, ph, pw = _p(r["p_t"]), _p(r["p_holm"]), _p(r["p_wilcoxon"])
             if r.get("significant"):
                 diff, ph = f"**{diff}**", f"**{ph}**"
         lines.append(f"| {r['variant']} | {r['n']} | {cell} | {ci} | {diff} | {pt} | {ph} | {pw} |")
+    if metric != rep.primary:
+        lines.append(f"\n*{metric} is a secondary metric: its p-values are not adjusted across metrics and no "
+                     f"difference is marked; the study's primary metric is {rep.primary}.*")
     return "\n".join(lines)
+
+
+def _diff(r) -> str:
+    """The paired difference with its interval; a difference without spread says so."""
+    if r.get("zero_spread") is True:
+        return f"{r['diff']:+.3f} at every seed (no spread: no test)"
+    return f"{r['diff']:+.3f} [{_fmt(r['diff_lo'])}, {_fmt(r['diff_hi'])}]"
 
 
 def latex_table(rep: Report, metric: str) -> str:
@@ -157,7 +175,7 @@ def latex_table(rep: Report, metric: str) -> str:
         if r["variant"] == rep.baseline:
             diff, p = "baseline", ""
         else:
-            diff = f"${r['diff']:+.3f}$ [{_fmt(r['diff_lo'])}, {_fmt(r['diff_hi'])}]"
+            diff = _diff(r).replace(f"{r['diff']:+.3f}", f"${r['diff']:+.3f}$", 1)
             p = _p(r["p_holm"])
             if r.get("significant"):
                 diff, p = rf"\textbf{{{diff}}}", rf"\textbf{{{p}}}"
@@ -181,8 +199,10 @@ def write_report(rep: Report, out: Path, tracking_uri: str | None = None,
           f"{n_seeds.min()}–{n_seeds.max()}. Baseline: **{rep.baseline}**.", "",
           f"Intervals are 95% Student t over seeds; Δ is paired by seed. p (Holm): the paired t-test "
           f"p adjusted for the {max(rep.runs.variant.nunique() - 1, 0)} comparisons of each table "
-          f"(Holm 1979); bold: adjusted p < {rep.alpha}. With n seeds the exact Wilcoxon signed-rank p "
-          "cannot fall below 2/2^n (all n signs alike).", ""]
+          f"(Holm 1979). The primary metric is **{rep.primary}**: bold marks its differences with adjusted "
+          f"p < {rep.alpha}; every other metric is secondary (shown, never marked). Intervals over seeds say "
+          "how much a result moves with the seed, not with the test set. With n seeds the exact Wilcoxon "
+          "signed-rank p cannot fall below 2/2^n (all n signs alike).", ""]
     if rep.duplicates:
         md[3:3] = [f"{rep.duplicates} run(s) repeated a seed of their variant and were left out "
                    "(the latest run of each seed is kept).", ""]

@@ -25,12 +25,12 @@ class Plan:
         from ..report.planning import plan_table
 
         s = self.study
-        comparisons = max(len(s.variants) - 1, 1)
-        alpha = s.alpha / comparisons    # Holm's first step: the strictest level the study will use
+        comparisons = max(len(s.variants) - 1, 1)   # Holm's first step: the strictest level the study uses
         tables = []
         for store, rep in StudyReport(s).reports.items():
-            t = plan_table(rep.table[rep.table.metric == s.primary], rep.baseline, self.effect, self.power, alpha)
-            tables.append(t.assign(store=store, alpha=alpha))
+            t = plan_table(rep.table[rep.table.metric == s.primary], rep.baseline, self.effect, self.power,
+                           s.alpha, comparisons)
+            tables.append(t.assign(store=store))
         return pd.concat(tables, ignore_index=True) if tables else pd.DataFrame()
 
     def counts(self) -> dict[str, int]:
@@ -69,7 +69,7 @@ class StudyReport:
         self.reports: dict[str, Report] = {}
         for store, runs in results.groupby("store", sort=False):
             self.reports[store] = build_report(runs.reset_index(drop=True), baseline=study.baseline,
-                                               alpha=study.alpha, labelled=True)
+                                               alpha=study.alpha, labelled=True, primary=study.primary)
         status = study.runs()
         self.failures = status[status.status == "failed"][["store", "variant", "seed", "error"]].reset_index(drop=True)
 

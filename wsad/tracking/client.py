@@ -124,11 +124,21 @@ class TrackedRun:
 
     def log_store(self, name: str, root: str, fingerprint: str) -> None:
         """The feature store as the run's dataset input; its digest is the store's fingerprint."""
+        import time
+
         from mlflow.entities import Dataset, DatasetInput, InputTag
 
         ds = Dataset(name=name, digest=fingerprint, source_type="local", source=str(root))
-        retry(lambda: self._c.log_inputs(self.run_id, datasets=[DatasetInput(ds, [
-            InputTag("mlflow.data.context", "training")])]), self.uri)
+        inputs = [DatasetInput(ds, [InputTag("mlflow.data.context", "training")])]
+        for attempt in range(5):
+            try:
+                return retry(lambda: self._c.log_inputs(self.run_id, datasets=inputs), self.uri)
+            except WsadError:
+                raise
+            except Exception as err:  # noqa: BLE001 - two trials creating the same dataset at once
+                if "unique" not in str(err).lower() or attempt == 4:
+                    raise
+                time.sleep(0.2 * (attempt + 1))   # the other trial made it: linking it now succeeds
 
     def log_folder(self, folder: Path, skip: tuple[str, ...] = ("state",)) -> None:
         """Upload a run folder's sub-folders (``state/`` holds the resume checkpoint: uploaded
