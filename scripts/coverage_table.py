@@ -5,6 +5,9 @@ camera-specific offsets, effect sizes and anomaly rates, heavy-tailed AR(1) nois
 at frame level), the camera as the unit.
 
     python scripts/coverage_table.py [REPLICATES] [--out docs/results/coverage.md]
+
+With --out it also writes wsad/evaluate/coverage_measured.json: the default interval's coverage per
+number of cameras, which a run with few test cameras quotes in its warning.
 """
 from __future__ import annotations
 
@@ -25,7 +28,6 @@ def table(replicates: int) -> pd.DataFrame:
 
 
 def markdown(df: pd.DataFrame) -> str:
-    wide = df.pivot(index="design", columns="interval", values="coverage")
     order = [d.name for d in FAMILY]
     cols = list(dict.fromkeys(df.interval))
     reps = int(df.replicates.iloc[0])
@@ -47,10 +49,22 @@ def markdown(df: pd.DataFrame) -> str:
 def main(argv: list[str]) -> None:
     reps = int(argv[0]) if argv and not argv[0].startswith("--") else 1000
     out = Path(argv[argv.index("--out") + 1]) if "--out" in argv else None
-    text = markdown(table(reps))
+    df = table(reps)
+    text = markdown(df)
     print(text)
     if out is not None:
         out.write_text(text)
+        import json
+
+        from wsad.evaluate.designs import FAMILY
+        from wsad.evaluate.evaluation import MEASURED
+
+        default = df[df.interval == "jackknife"].set_index("design").coverage
+        measured = {}
+        for d in FAMILY:
+            kind = "unequal" if d.unequal else "equal"
+            measured.setdefault(str(d.cameras), {})[kind] = round(float(default[d.name]), 3)
+        MEASURED.write_text(json.dumps({"replicates": reps, "coverage": measured}, indent=1) + "\n")
 
 
 if __name__ == "__main__":

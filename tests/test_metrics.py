@@ -13,7 +13,6 @@ from wsad.errors import WsadError
 from wsad.evaluate import (
     VideoScores,
     average_precision,
-    bootstrap_naive,
     compute_metrics,
     grouped_bootstrap,
     grouped_bootstrap_values,
@@ -123,12 +122,33 @@ def test_missing_events_skip_frame_metrics_with_warning():
     assert "video_auc" in m  # video-level metrics still reported
 
 
+def sklearn_bootstrap(vids, n, seed, by="video"):
+    """The plain definition with scikit-learn's metrics: draw clusters (the same indices as the
+    package), concatenate their videos' frames, score them."""
+    from sklearn.metrics import average_precision_score
+
+    from wsad.evaluate import bootstrap_indices
+
+    keys = [v.video if by == "video" else v.group for v in vids]
+    clusters = sorted(set(keys))
+    members = [[i for i, k in enumerate(keys) if k == c] for c in clusters]
+    auc, ap = np.full(n, np.nan), np.full(n, np.nan)
+    for r, rows in enumerate(bootstrap_indices(len(clusters), n, seed)):
+        drawn = [i for c in rows for i in members[c]]
+        y = np.concatenate([vids[i].frame_labels for i in drawn])
+        s = np.concatenate([vids[i].frame_scores() for i in drawn])
+        if 0 < y.sum() < len(y):
+            auc[r], ap[r] = roc_auc_score(y, s), average_precision_score(y, s)
+    return auc, ap
+
+
 @pytest.mark.parametrize("levels", [None, 1])
 def test_grouped_bootstrap_equals_naive(levels):
-    # Reference: the plain definition, resample videos, concatenate, score (same indices).
+    # Reference: the plain definition with scikit-learn's roc_auc_score and average_precision_score
+    # on the concatenated frames of the drawn videos (same indices).
     vids = _videos(seed=3, levels=levels)
     fast_auc, fast_ap = grouped_bootstrap_values(vids, 60, seed=5)
-    auc, ap = bootstrap_naive(vids, 60, seed=5)
+    auc, ap = sklearn_bootstrap(vids, 60, seed=5)
     assert np.array_equal(np.isnan(fast_auc), np.isnan(auc))
     ok = ~np.isnan(auc)
     assert np.max(np.abs(fast_auc[ok] - auc[ok])) < 1e-9
@@ -159,3 +179,19 @@ def test_average_ranks_equal_scipy_rankdata(values, spread):
     assert got.dtype == np.float64 and np.array_equal(got, rankdata(s))
     with_nan = np.r_[s, np.nan]
     assert np.isnan(average_ranks(with_nan)).all() and np.isnan(rankdata(with_nan)).all()
+
+
+def test_macro_auc_is_the_mean_within_video_auc_and_ignores_video_offsets():
+    # Reference: scikit-learn's roc_auc_score on each anomalous video's own frames, averaged. A
+    # random constant added to each video's scores leaves every within-video ranking, and so
+    # the macro AUC, unchanged, while the micro frame AUC moves (it also compares across videos).
+    vids = _videos(seed=6, n=20)
+    per = [roc_auc_score(v.frame_labels, v.frame_scores()) for v in vids
+           if v.label == 1 and 0 < v.frame_labels.sum() < len(v.frame_labels)]
+    m = compute_metrics(vids)
+    assert m["macro_auc"] == pytest.approx(np.mean(per))
+    rng = np.random.default_rng(1)
+    shifted = [VideoScores(v.video, v.group, v.label, v.segment_scores + rng.normal(0, 3), v.frame_labels, v.frames)
+               for v in vids]
+    m2 = compute_metrics(shifted)
+    assert m2["macro_auc"] == pytest.approx(m["macro_auc"]) and abs(m2["frame_auc"] - m["frame_auc"]) > 0.02

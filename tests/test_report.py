@@ -156,3 +156,50 @@ def test_a_seed_run_twice_counts_once_and_nan_pairs_are_left_out(tmp_path):
     keep = ~np.isnan(a)
     assert r["n_pairs"] == 5
     assert r["p_t"] == pytest.approx(stats.ttest_rel(a[keep], b[keep]).pvalue, abs=1e-12)
+
+
+def test_a_paired_difference_without_spread_is_not_a_test():
+    # Every seed moves by exactly 1/36 (one video of 36 called right more): no spread, so the paired
+    # t-test is undefined (SciPy gives NaN for it too), no interval, never bold.
+    a = np.array([0.50, 0.55, 0.61, 0.47, 0.52])
+    r = paired_tests(a + 1 / 36, a)
+    with np.errstate(all="ignore"):
+        assert np.isnan(stats.ttest_rel(a + 1 / 36, a).pvalue) or r["zero_spread"]
+    assert r["zero_spread"] and math.isnan(r["p_t"]) and math.isnan(r["diff_lo"])
+    assert r["diff"] == pytest.approx(1 / 36)
+    runs = _runs()
+    base = runs[runs["params.ablation.toggle"] == "none"].copy()
+    shifted = base.assign(**{"params.ablation.toggle": "sparsity", "run_id": base.run_id + "s",
+                             "metrics.frame_auc": base["metrics.frame_auc"] + 1 / 36})
+    rep = build_report(pd.concat([base, shifted]), by=["ablation.toggle"], metrics=("frame_auc",))
+    row = rep.table.set_index("variant").loc["ablation.toggle=sparsity"]
+    assert not row.significant and row.zero_spread
+    md = markdown_table(rep, "frame_auc")
+    assert "at every seed (no spread: no test)" in md and "**" not in md
+
+
+def test_only_the_primary_metric_is_marked():
+    rep = build_report(_runs(), metrics=("frame_auc", "video_auc"), primary="video_auc")
+    t = rep.table.set_index(["metric", "variant"])
+    assert not t.loc[("frame_auc", "ablation.toggle=smoothness"), "significant"]     # secondary now
+    assert t.loc[("frame_auc", "ablation.toggle=smoothness"), "p_holm"] < 0.05        # its p is still shown
+    assert "secondary metric" in markdown_table(rep, "frame_auc")
+
+
+@pytest.mark.parametrize("n,sd,comparisons", [(5, 0.012, 3), (8, 0.02, 1), (4, 0.01, 5)])
+def test_seed_plan_at_holms_level_with_the_pilot_sds_upper_limit(n, sd, comparisons):
+    # References: the sd's one-sided 80% upper limit sd sqrt((n-1)/chi2_{0.2}(n-1)) with SciPy's
+    # chi2, and statsmodels' TTestPower at alpha / comparisons (Holm's first step).
+    from statsmodels.stats.power import TTestPower
+
+    from wsad.report.planning import plan_table, sd_upper_limit
+
+    upper = sd * math.sqrt((n - 1) / stats.chi2.ppf(0.2, n - 1))
+    assert sd_upper_limit(sd, n) == pytest.approx(upper)
+    table = pd.DataFrame([{"variant": f"v{i}", "metric": "frame_auc", "n_pairs": n, "diff_sd": sd}
+                          for i in range(comparisons + 1)])
+    plan = plan_table(table, "v0", 0.02, comparisons=comparisons)
+    ref = TTestPower().solve_power(effect_size=0.02 / upper, alpha=0.05 / comparisons, power=0.8)
+    assert (plan.alpha == 0.05 / comparisons).all()
+    assert abs(plan.seeds_needed.iloc[0] - math.ceil(ref)) <= 1
+    assert plan.seeds_needed.iloc[0] > plan_table(table, "v0", 0.02, alpha=1.0, comparisons=1).seeds_needed.iloc[0]

@@ -366,21 +366,25 @@ def test_two_means_refuses_bad_input_in_one_line():
         two_means(rows, mask.float())
 
 
-def test_functional_forms_are_what_the_terms_compute():
-    # Each term is a thin class over its functional form: the same value on the same batch.
-    from wsad.terms.bag_bce import bag_bce
-    from wsad.terms.ranking_hinge import ranking_hinge
-    from wsad.terms.smoothness import smoothness
-    from wsad.terms.sparsity import sparsity
-    from wsad.terms.video_bce import video_bce
+def test_terms_equal_their_formulas_bag_by_bag():
+    # Each term against its formula written here bag by bag in plain Python over the real
+    # segments (the published definitions: ranking hinge and smoothness/sparsity, Sultani et al.
+    # 2018, from memory), and the BCE terms against PyTorch's own losses on the unpadded values.
+    import torch.nn.functional as F  # noqa: N812
 
     inp = _batch(7)
-    anom = inp.y > 0.5
-    assert RankingHinge(0.7)(inp) == ranking_hinge(inp.scores, inp.mask, inp.y, inp.pairs, 0.7)
-    assert Smoothness("anomalous")(inp) == smoothness(inp.scores, inp.mask, anom)
-    assert Sparsity(per_segment=True)(inp) == sparsity(inp.scores, inp.mask, anom, True)
-    assert VideoBCE()(inp) == video_bce(inp.logits, inp.mask, inp.y)
-    assert BagBCE()(inp) == bag_bce(inp.bag_scores, inp.y)
+    s = torch.sigmoid(inp.logits)
+    real = [s[b, :int(inp.mask[b].sum())].tolist() for b in range(len(s))]
+    anom = [b for b in range(len(s)) if inp.y[b] > 0.5]
+    hinge = np.mean([max(0.0, 0.7 - max(real[a]) + max(real[n])) for a, n in inp.pairs.tolist()])
+    assert float(RankingHinge(0.7)(inp)) == pytest.approx(hinge, abs=1e-12)
+    smooth = np.mean([sum((x[t] - x[t + 1]) ** 2 for t in range(len(x) - 1)) for x in (real[b] for b in anom)])
+    assert float(Smoothness("anomalous")(inp)) == pytest.approx(smooth, abs=1e-12)
+    assert float(Sparsity(per_segment=True)(inp)) == pytest.approx(np.mean([np.mean(real[b]) for b in anom]), abs=1e-12)
+    target = torch.cat([torch.full((int(inp.mask[b].sum()),), float(inp.y[b])) for b in range(len(s))]).double()
+    logits = torch.cat([inp.logits[b, :int(inp.mask[b].sum())] for b in range(len(s))])
+    assert float(VideoBCE()(inp)) == pytest.approx(float(F.binary_cross_entropy_with_logits(logits, target)), abs=1e-12)
+    assert float(BagBCE()(inp)) == pytest.approx(float(F.binary_cross_entropy(inp.bag_scores, inp.y)), abs=1e-12)
 
 
 def test_bag_bce_keeps_the_gradient_of_a_confidently_wrong_bag():

@@ -39,10 +39,12 @@ class TrainerSettings:
     threads: Optional[int] = _f(None, "torch threads; null = all cores, or 1 per job in a sweep", bookkeeping=True)
     bootstrap: int = _f(1000, "cluster resamples for the final intervals (0 skips intervals)")
     bootstrap_by: Optional[str] = _f(None, "the unit intervals treat as independent: video, group (camera), "
-                                     "or null: group when the test split has >= 10 cameras", ("video", "group", None))
-    interval: str = _f("clustered", "frame AUC interval: clustered (Obuchowski 1997 variance, t on clusters - 1) "
+                                     "or null: the camera", ("video", "group", None))
+    interval: str = _f("jackknife", "frame AUC interval: jackknife (over cameras, logit scale, t on the effective "
+                       "cameras - 1; the default, its coverage measured in the docs), clustered (Obuchowski 1997 "
+                       "variance, t on clusters - 1) "
                        "or logit (the same on the logit scale), percentile, bc or bca (cluster bootstrap)",
-                       ("clustered", "logit", "percentile", "bc", "bca"))
+                       ("jackknife", "clustered", "logit", "percentile", "bc", "bca"))
     eval_every: int = _f(1, "test metrics every N epochs, for the learning curves only", bookkeeping=True)
     resume: Optional[str] = _f(None, "an MLflow run id to continue", bookkeeping=True)
     progress: bool = _f(True, "show the progress bar", bookkeeping=True)

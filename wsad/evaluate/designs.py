@@ -92,7 +92,7 @@ def population_auc(d: Family, cameras: int = 3000, seed: int = 12345) -> float:
 FAMILY = [Family(c, unequal=u) for c in (6, 8, 16, 40) for u in (False, True)]
 
 
-CANDIDATES = ("clustered", "logit", "percentile", "bc", "bca")
+CANDIDATES = ("jackknife", "clustered", "logit", "percentile", "bc", "bca")
 
 
 def candidate_intervals(videos: list[VideoScores], by: str, n_resamples: int, seed: int,
@@ -103,6 +103,7 @@ def candidate_intervals(videos: list[VideoScores], by: str, n_resamples: int, se
         clustered_auc,
         clustered_interval,
         grouped_bootstrap_values,
+        jackknife_interval,
         jackknife_values,
         logit_interval,
     )
@@ -111,7 +112,8 @@ def candidate_intervals(videos: list[VideoScores], by: str, n_resamples: int, se
     boot = grouped_bootstrap_values(videos, n_resamples, seed, by=by)[0]
     kept = boot[~np.isnan(boot)]
     q = [(1 - level) / 2 * 100, (1 + level) / 2 * 100]
-    return {"clustered": clustered_interval(videos, by, level)[:2], "logit": logit_interval(videos, by, level)[:2],
+    return {"jackknife": jackknife_interval(videos, by, level)[:2],
+            "clustered": clustered_interval(videos, by, level)[:2], "logit": logit_interval(videos, by, level)[:2],
             "percentile": tuple(np.percentile(kept, q)), "bc": bca_bounds(point, boot, None, level),
             "bca": bca_bounds(point, boot, jackknife_values(videos, by), level)}
 

@@ -19,7 +19,6 @@ from ..data.cache import ArrayCache
 from ..data.scorer import Scorer
 from ..data.standardize import Standardizer
 from ..errors import WsadError
-from ..evaluate.evaluation import MIN_GROUPS_FOR_GROUP_UNIT
 from ..pooling.modules import Pooling
 from ..registry import build_component
 from ..settings import check_config
@@ -197,14 +196,10 @@ def check_selection(trainer: DictConfig, epochs: int) -> None:
 
 
 def resolve_interval_unit(cfg: DictConfig, store: FeatureStore) -> None:
-    """``trainer.bootstrap_by``: the unit intervals treat as independent. Unset, it is
-    the camera when the test split has at least 10 of them (fewer clusters give
-    intervals too narrow to trust), else the video; the chosen value is what the
-    run logs as its param."""
-    by = cfg.trainer.get("bootstrap_by")
-    if by is None:
-        groups = store.manifest.loc[store.manifest["split"] == "test", "group"].nunique()
-        by = "group" if groups >= MIN_GROUPS_FOR_GROUP_UNIT else "video"
+    """``trainer.bootstrap_by``: the unit intervals treat as independent. Unset, it is the
+    camera (videos of one camera share its background); the chosen value is what the run
+    logs as its param."""
+    by = cfg.trainer.get("bootstrap_by") or "group"
     with open_dict(cfg):
         cfg.trainer.bootstrap_by = by
 
