@@ -195,3 +195,44 @@ def test_study_file_through_the_command_and_a_local_scheduler(small_store, tmp_p
     bad = subprocess.run([sys.executable, "-c", code, str(study_file)], capture_output=True, text=True,
                          timeout=300, cwd=tmp_path)
     assert bad.returncode == 2 and "is not a feature store" in bad.stderr and "Traceback" not in bad.stderr
+
+
+def test_two_level_interval_over_cameras_and_seeds(study):
+    """The report's interval that also resamples the test cameras: built here by hand from each
+    run's exported frame scores with scikit-learn's AUC on the same camera draws and seed draws."""
+    from sklearn.metrics import roc_auc_score
+
+    from wsad.evaluate import bootstrap_indices
+    from wsad.report.two_level import two_level_table
+
+    s, _, _ = study
+    rep = s.report().reports[next(iter(s.stores))]
+    folders = {v: dict(zip(sub.seed, sub.folder)) for v, sub in rep.runs.groupby("variant", sort=False)}
+    got = two_level_table(folders, rep.baseline, n=60, seed=3).set_index("variant")
+    aucs = {}
+    for v, runs in folders.items():
+        for seed, folder in runs.items():
+            t = pd.read_parquet(f"{folder}/scores/test_scores.parquet")
+            t = t[t.label >= 0]
+            cams = sorted(t.group.unique())
+            draws = bootstrap_indices(len(cams), 60, 3)
+            per_cam = {c: t[t.group == c] for c in cams}
+            aucs[(v, seed)] = np.array([roc_auc_score(pd.concat([per_cam[cams[c]] for c in row]).label,
+                                                      pd.concat([per_cam[cams[c]] for c in row]).score)
+                                        for row in draws])
+    rng = np.random.default_rng(4)
+    for v, runs in folders.items():
+        seeds = sorted(runs)
+        mine = np.stack([aucs[(v, x)] for x in seeds])
+        draw = rng.integers(0, len(seeds), size=(60, len(seeds)))
+        means = mine[draw, np.arange(60)[:, None]].mean(axis=1)
+        assert got.loc[v, "two_level_lo"] == pytest.approx(np.quantile(means, 0.025))
+        assert got.loc[v, "two_level_hi"] == pytest.approx(np.quantile(means, 0.975))
+        if v != rep.baseline:
+            diffs = np.stack([aucs[(v, x)] - aucs[(rep.baseline, x)] for x in seeds])
+            pick = rng.integers(0, len(seeds), size=(60, len(seeds)))
+            d = diffs[pick, np.arange(60)[:, None]].mean(axis=1)
+            assert got.loc[v, "diff_two_level_lo"] == pytest.approx(np.quantile(d, 0.025))
+    seed_only = rep.table[(rep.table.metric == "frame_auc") & (rep.table.variant == rep.baseline)].iloc[0]
+    assert got.loc[rep.baseline, "two_level_hi"] - got.loc[rep.baseline, "two_level_lo"] > 0
+    assert "Δ [95% CI, cameras and seeds]" in s.report()._repr_html_() and seed_only.n == 2

@@ -96,9 +96,14 @@ def order_conclusion(effect: pd.DataFrame) -> str:
             parts.append(f"{where} window order matters: {better} windows score higher (shuffled - sequential "
                          f"= {r['diff']:+.3f} frame AUC, 95% CI [{r.diff_lo:+.3f}, {r.diff_hi:+.3f}], "
                          f"Holm-adjusted p={r.p_holm:.3g}, {n} seeds)")
+        elif r.diff_lo > 0 or r.diff_hi < 0:
+            parts.append(f"{where} the seed interval of the difference excludes 0 ({r['diff']:+.3f}, 95% CI "
+                         f"[{r.diff_lo:+.3f}, {r.diff_hi:+.3f}]) but not after adjusting for the settings tested "
+                         f"(Holm-adjusted p={r.p_holm:.3g}): an effect of order is not shown")
         else:
-            parts.append(f"{where} it does not measurably matter (difference {r['diff']:+.3f}, 95% CI "
-                         f"[{r.diff_lo:+.3f}, {r.diff_hi:+.3f}], Holm-adjusted p={r.p_holm:.3g})")
+            parts.append(f"{where} an effect of order is not shown (difference {r['diff']:+.3f}, 95% CI "
+                         f"[{r.diff_lo:+.3f}, {r.diff_hi:+.3f}], Holm-adjusted p={r.p_holm:.3g}); the interval "
+                         "says how large an effect these seeds could have missed")
     text = "; ".join(parts) + "."
     text = text[0].upper() + text[1:]
     learned = effect[effect.learns]

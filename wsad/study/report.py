@@ -72,6 +72,9 @@ class StudyReport:
                                                alpha=study.alpha, labelled=True, primary=study.primary)
         status = study.runs()
         self.failures = status[status.status == "failed"][["store", "variant", "seed", "error"]].reset_index(drop=True)
+        if self.primary == "frame_auc":
+            for rep in self.reports.values():
+                _add_two_level(rep)
 
     @property
     def table(self) -> pd.DataFrame:
@@ -134,13 +137,22 @@ class StudyReport:
                 p = f"Holm-adjusted p = {_fmt(r.get('p_holm'))}, {int(r['n_pairs'])} seeds"
                 if r.get("significant"):
                     word = "higher" if r["diff"] > 0 else "lower"
-                    out.append(f"{variant}{where}: {word} than {rep.baseline} ({ci}; {p}).")
+                    lo2, hi2 = r.get("diff_two_level_lo", float("nan")), r.get("diff_two_level_hi", float("nan"))
+                    wider = ""
+                    if lo2 == lo2:
+                        holds = lo2 > 0 or hi2 < 0
+                        wider = (f" With the test cameras resampled too, the difference's interval is [{_fmt(lo2)}, "
+                                 f"{_fmt(hi2)}]: " + ("it also supports 'on cameras like these'." if holds else
+                                                     "it does not support 'on cameras like these', only 'on this "
+                                                     "test set'."))
+                    out.append(f"{variant}{where}: {word} than {rep.baseline} on this test set ({ci}; {p}).{wider}")
                 elif r["diff_lo"] > 0 or r["diff_hi"] < 0:
                     out.append(f"{variant}{where}: the seed interval of the difference excludes 0 ({ci}), but not "
                                f"after adjusting for the study's comparisons ({p}); not shown.")
                 else:
                     out.append(f"{variant}{where}: no difference from {rep.baseline} shown ({ci}; {p}).")
-        out.append(f"Intervals are over seeds on this test set; they do not include test-set sampling. "
+        out.append("The seed intervals say whether a variant is better on this test set; the intervals over "
+                   "cameras and seeds together say whether it is better on cameras like these. "
                    f"Significance: Holm-adjusted paired t at alpha {self.study.alpha} on {metric}, the primary metric.")
         return "\n".join(out)
 
@@ -195,12 +207,25 @@ class StudyReport:
                 for v, sub in runs.groupby("variant", sort=False)}
 
 
+def _add_two_level(rep: Report, n: int = 500) -> None:
+    """The primary metric's rows get the two-level intervals (cameras and seeds together)."""
+    from ..report.two_level import two_level_table
+
+    folders = {v: dict(zip(sub.seed, sub.folder)) for v, sub in rep.runs.groupby("variant", sort=False)}
+    tl = two_level_table(folders, rep.baseline, n=n).set_index("variant")
+    rows = rep.table.metric == rep.primary
+    for col in tl.columns:
+        rep.table.loc[rows, col] = rep.table.loc[rows, "variant"].map(tl[col])
+
+
 def _fmt(x) -> str:
     return "n/a" if x is None or (isinstance(x, float) and math.isnan(x)) else f"{x:.3f}"
 
 
 def _html_table(t: pd.DataFrame, rep: Report, metric: str) -> str:
-    head = ["variant", "n", f"{metric} (mean ± sd)", "95% CI", "Δ vs baseline [95% CI]", "p (Holm)"]
+    two = "diff_two_level_lo" in t.columns
+    head = ["variant", "n", f"{metric} (mean ± sd)", "95% CI (seeds)", "Δ vs baseline [95% CI, seeds]", "p (Holm)"]
+    head += ["Δ [95% CI, cameras and seeds]"] if two else []
     rows = []
     for _, r in t.iterrows():
         if r["variant"] == rep.baseline:
@@ -212,6 +237,9 @@ def _html_table(t: pd.DataFrame, rep: Report, metric: str) -> str:
                 diff, p = f"<b>{diff}</b>", f"<b>{p}</b>"
         cells = [escape(str(r["variant"])), str(r["n"]), f"{_fmt(r['mean'])} ± {_fmt(r['sd'])}",
                  f"[{_fmt(r['lo'])}, {_fmt(r['hi'])}]", diff, p]
+        if two:
+            cells.append("" if r["variant"] == rep.baseline else
+                         f"[{_fmt(r.get('diff_two_level_lo'))}, {_fmt(r.get('diff_two_level_hi'))}]")
         rows.append("<tr>" + "".join(f"<td style='text-align:left'>{c}</td>" for c in cells) + "</tr>")
     return ("<table><thead><tr>" + "".join(f"<th style='text-align:left'>{escape(h)}</th>" for h in head)
             + "</tr></thead><tbody>" + "".join(rows) + "</tbody></table>")
