@@ -91,6 +91,7 @@ def test_notebook_shows_its_results(site, name):
         assert "holds NaN" in text and "features mean nothing" in text and "store ready in" in text
     if name.startswith("04"):
         assert "p-values are Holm-adjusted over the" in text           # the computed conclusion
+        assert "p_improvement" in text                                    # the across-settings aggregate
     if name.startswith("05"):
         assert "at the warehouse-1 threshold" in text and "| warehouse 2 | topk | 5.000 |" in text
     if name.startswith("06"):

@@ -203,3 +203,34 @@ def test_seed_plan_at_holms_level_with_the_pilot_sds_upper_limit(n, sd, comparis
     assert (plan.alpha == 0.05 / comparisons).all()
     assert abs(plan.seeds_needed.iloc[0] - math.ceil(ref)) <= 1
     assert plan.seeds_needed.iloc[0] > plan_table(table, "v0", 0.02, alpha=1.0, comparisons=1).seeds_needed.iloc[0]
+
+
+def test_aggregates_across_stores_match_rliable():
+    # References: rliable's own estimators (Agarwal et al. 2021) for the interquartile mean and the
+    # probability of improvement; the stratified bootstrap by its definition (runs resampled within
+    # each store, the same draws); performance profiles by rliable's formula, mean(scores > tau).
+    from rliable import metrics as rl
+
+    from wsad.report.aggregate import (
+        improvement_interval,
+        interval,
+        iqm,
+        performance_profile,
+        probability_of_improvement,
+        stratified_resamples,
+    )
+
+    rng = np.random.default_rng(0)
+    x = rng.normal(0.75, 0.03, (5, 4)).round(2)   # 5 seeds x 4 stores, rounded: ties
+    y = rng.normal(0.72, 0.03, (5, 4)).round(2)
+    assert iqm(x) == pytest.approx(rl.aggregate_iqm(x))
+    assert probability_of_improvement(x, y) == pytest.approx(rl.probability_of_improvement(x, y))
+    taus = np.linspace(0.6, 0.9, 7)
+    np.testing.assert_allclose(performance_profile(x, taus), [np.mean(x > t) for t in taus])
+    boot = stratified_resamples({"x": x}, 50, 3)["x"]
+    idx = np.random.default_rng(3).integers(0, 5, size=(50, 5, 4))
+    np.testing.assert_array_equal(boot, x[idx, np.arange(4)[None, None, :]])
+    value, lo, hi = interval({"x": x}, iqm, 500, 1)["x"]
+    assert value == pytest.approx(rl.aggregate_iqm(x)) and lo < value < hi
+    p, plo, phi = improvement_interval(x, y, 500, 2)
+    assert plo <= p <= phi and 0 <= plo and phi <= 1

@@ -6,6 +6,7 @@ import math
 from html import escape
 from pathlib import Path
 
+import numpy as np
 import pandas as pd
 
 from ..errors import WsadError
@@ -155,6 +156,62 @@ class StudyReport:
                    "cameras and seeds together say whether it is better on cameras like these. "
                    f"Significance: Holm-adjusted paired t at alpha {self.study.alpha} on {metric}, the primary metric.")
         return "\n".join(out)
+
+    # --- across stores ------------------------------------------------------------------------------
+    def score_matrix(self, metric: str | None = None) -> dict[str, np.ndarray]:
+        """``{variant: [seeds, stores]}`` of ``metric`` (seeds every store has, in order)."""
+        metric = metric or self.primary
+        res = self.study.results()
+        col = f"metrics.{metric}"
+        if col not in res.columns:
+            raise WsadError(f"no finished run logs {metric}")
+        wide = res.pivot_table(index=["variant", "seed"], columns="store", values=col)
+        stores = list(self.study.stores)
+        out = {}
+        for v in dict.fromkeys(res.variant):
+            m = wide.loc[v].reindex(columns=stores).dropna()
+            out[v] = m.to_numpy()
+        return out
+
+    def across_stores(self, metric: str | None = None, reps: int = 2000) -> pd.DataFrame:
+        """Each variant over every store: the interquartile mean of its runs with a stratified
+        bootstrap interval, and its probability of improvement over the baseline with its interval
+        (Agarwal et al., NeurIPS 2021; :mod:`wsad.report.aggregate`)."""
+        from ..report.aggregate import improvement_interval, interval, iqm
+
+        if len(self.study.stores) < 2:
+            raise WsadError("aggregates across stores need a study over two or more stores")
+        scores = self.score_matrix(metric)
+        base = next(iter(self.reports.values())).baseline
+        rows = []
+        for v, (value, lo, hi) in interval(scores, iqm, reps).items():
+            row = {"variant": v, "iqm": value, "iqm_lo": lo, "iqm_hi": hi}
+            if v != base:
+                p, plo, phi = improvement_interval(scores[v], scores[base], reps)
+                row.update(p_improvement=p, p_improvement_lo=plo, p_improvement_hi=phi)
+            rows.append(row)
+        return pd.DataFrame(rows)
+
+    def plot_profiles(self, metric: str | None = None):
+        """Performance profiles: the share of runs (seeds x stores) scoring above each threshold."""
+        import matplotlib.pyplot as plt
+        import seaborn as sns
+
+        from ..report.aggregate import performance_profile
+
+        scores = self.score_matrix(metric)
+        allv = np.concatenate([s.ravel() for s in scores.values()])
+        taus = np.linspace(allv.min(), allv.max(), 101)
+        sns.set_theme(style="whitegrid")
+        fig, ax = plt.subplots(figsize=(5.5, 3.8))
+        for v, s in scores.items():
+            ax.plot(taus, performance_profile(s, taus), lw=1.6, label=v)
+        ax.set(xlabel=f"{metric or self.primary} threshold tau", ylabel="share of runs above tau",
+               title=f"performance profiles over {len(self.study.stores)} stores")
+        ax.legend(fontsize=7)
+        fig.tight_layout()
+        plt.close(fig)
+        return fig
 
     # --- figures ------------------------------------------------------------------------------------
     def plot(self, metric: str | None = None, store: str | None = None):
