@@ -69,4 +69,6 @@ def test_recipe_finds_held_out_digit_runs(tmp_path, recipe, extra):
     seg = table[table.frame % 16 == 0]  # one row per segment: instance level
     auc = roc_auc_score(seg.label, seg.score)  # reference: scikit-learn
     print(f"digits instance-level AUC {auc:.4f}")
+    # common practice: a class unseen in training and separable from the others (the held-out
+    # digit) is found near-perfectly by an instance scorer; 0.95 leaves room for weak labels
     assert auc >= 0.95, auc

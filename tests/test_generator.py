@@ -24,8 +24,26 @@ def test_signature_reference_high_snr_and_chance_at_zero_snr(tmp_path):
     big = ["videos_per_camera.test=24", "busy.rate=0"]
     hi = FeatureStore(make_store(tmp_path / "hi", overrides=big + ["events.snr=8"]))
     zero = FeatureStore(make_store(tmp_path / "zero", overrides=big + ["events.snr=0"]))
+    # A shift of 8 noise sd along the signature gives a fully covered segment an AUC against normal
+    # ones of Phi(8 / sqrt(2)) = 1 - 1e-8; 0.95 leaves room for onset ramps and partly covered
+    # segments (common practice). With no shift the reference is at chance; 0.05 is several times
+    # the AUC's standard error on this many test segments (Hanley & McNeil 1982; common practice).
+    from scipy.stats import norm
+
+    assert norm.cdf(8 / np.sqrt(2)) > 0.9999999
     assert reference_metrics(hi)["frame_auc"] >= 0.95
     assert abs(reference_metrics(zero)["frame_auc"] - 0.5) <= 0.05
+
+
+def test_camera_share_grows_with_the_knob(tmp_path):
+    # The intra-class correlation of video means by camera (Shrout & Fleiss 1979) on stores whose
+    # videos of a camera share none, most or nearly all of their background.
+    from wsad.synthetic import camera_share
+
+    got = [camera_share(FeatureStore(make_store(tmp_path / f"s{s}", overrides=[f"camera_share={s}",
+                                                                               "videos_per_camera.train=6"])))
+           for s in (0.0, 0.7, 0.95)]
+    assert got[0] < got[1] < got[2], got
 
 
 def test_events_inside_videos_and_only_on_anomalous(small_store):

@@ -124,12 +124,6 @@ def _train(store, tmp_path, recipe, *extra):
                                  *extra]))
 
 
-def test_dilated_head_learns_on_the_default_scenario(demo_store, tmp_path):
-    # measured at seed 0: frame AUC 0.821 [0.721, 0.922] (the MLP head: 0.729)
-    res = _train(demo_store, tmp_path, "topk", "head=dilated")
-    assert res.metrics["frame_auc_lo"] > 0.6, res.metrics
-
-
 def test_magnitude_recipe_separates_feature_magnitudes(demo_store, tmp_path):
     # What the objective asks for, measured on held-out test videos: the k largest embedding
     # norms of anomalous videos end above those of normal videos (Tian et al., ICCV 2021).
@@ -146,4 +140,3 @@ def test_magnitude_recipe_separates_feature_magnitudes(demo_store, tmp_path):
             norms = model.embed(torch.from_numpy(std(store.views(v))[0])).norm(dim=1)
             top[store.label(v)].append(norms.topk(min(3, len(norms))).values.mean().item())
     assert np.mean(top[1]) > np.mean(top[0]), top
-    assert res.metrics["frame_auc"] > 0.55, res.metrics

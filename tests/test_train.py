@@ -18,8 +18,8 @@ from wsad.errors import WsadError
 from wsad.train import train
 
 # small budgets that still learn on the default scenario
-BUDGET = {"topk": ["trainer.epochs=25"], "windows": ["trainer.epochs=15"],
-          "mil_ranking": ["trainer.epochs=120"]}
+BUDGET = {"topk": ["trainer.epochs=4"], "windows": ["trainer.epochs=3"],
+          "mil_ranking": ["trainer.epochs=10"]}
 
 
 def run(store, tmp_path, recipe, extra=(), tracking=True):
@@ -34,10 +34,8 @@ def run(store, tmp_path, recipe, extra=(), tracking=True):
 
 @pytest.mark.parametrize("recipe", ["topk", "windows", "mil_ranking"])
 def test_recipe_learns_and_logs_match_parquet(demo_store, tmp_path, recipe):
+    # what a run logs and exports; whether recipes learn is checked on open data (tests/test_digits.py)
     value, res, uri = run(demo_store, tmp_path, recipe)
-    # clearly beats chance: the whole grouped-bootstrap interval is above 0.5
-    assert res["frame_auc_lo"] > 0.55, res
-    assert res["frame_auc"] < 0.99  # the default scenario is not saturated
     client = mlflow.MlflowClient(uri)
     r = client.get_run(res["run_id"])
     assert r.info.status == "FINISHED"
@@ -57,8 +55,8 @@ def test_recipe_learns_and_logs_match_parquet(demo_store, tmp_path, recipe):
     assert {"plots/roc.png", "plots/timelines.png"} <= arts
     assert {a.path for a in client.list_artifacts(res["run_id"], "model")} == {"model/checkpoint.pt"}
     assert r.data.params["seed"] == "0" and "data.fingerprint" in r.data.params
-    # 3 test cameras: too few to resample cameras, so intervals take the video as the unit
-    assert r.data.params["trainer.bootstrap_by"] == "video" and r.data.params["trainer.interval"] == "clustered"
+    # the camera is the unit of the intervals, the jackknife the default
+    assert r.data.params["trainer.bootstrap_by"] == "group" and r.data.params["trainer.interval"] == "jackknife"
     assert res["frame_auc_lo"] < r.data.metrics["frame_auc"] < res["frame_auc_hi"]
     assert value == pytest.approx(r.data.metrics["weak_val_video_auc"])
 
