@@ -27,7 +27,7 @@ SMALL = {
                           "VARIANTS": {"ablation.toggle": ["none", "smoothness", "sparsity"]}},
     "03_your_own_features": {"EPOCHS": 5, "SCENARIO_OVERRIDES": [*SMALL_STORE, "crops=5"], "CLIPS_PER_CAMERA": 2,
                              "CLIP_SECONDS": 2},
-    "04_correlation_study": {"SEEDS": 3, "RHO_VALUES": [0.0, 0.97], "SHARE_VALUES": [0.0, 0.95], "EPOCHS": 3,
+    "04_correlation_study": {"SEEDS": 2, "RHO_VALUES": [0.0, 0.97], "SHARE_VALUES": [0.0, 0.95], "EPOCHS": 2,
                              "SCENARIO_OVERRIDES": [*SMALL_STORE, "length.mean=60"]},
     "05_operating_points": {"RECIPES": ["topk", "windows"], "SEEDS": 1, "EPOCHS": 2,
                             "SCENARIO_OVERRIDES": ["videos_per_camera.train=4", "videos_per_camera.test=4",

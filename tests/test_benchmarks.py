@@ -11,9 +11,12 @@ import subprocess
 import sys
 from pathlib import Path
 
+import pytest
+
 ROOT = Path(__file__).resolve().parents[1]
 
 
+@pytest.mark.slow   # about 2.5 minutes: every script end to end (make test-slow, and make bench runs them all)
 def test_every_benchmark_runs_at_tiny_size(tmp_path):
     env = {**os.environ, "WSAD_BENCH_WORK": str(tmp_path / "work"),
            "WSAD_BENCH_RESULTS": str(tmp_path / "results")}

@@ -262,6 +262,7 @@ def test_folder_to_a_checked_store_that_trains(tmp_path):
     assert r.metrics["frame_auc"] == pytest.approx(roc_auc_score(known.label, known.score))
 
 
+@pytest.mark.slow   # about 40 s; the shard arithmetic itself is covered by the plan tests
 def test_shards_split_the_list_and_agree_with_one_process(tmp_path):
     videos = tmp_path / "videos"
     _camera_folder(videos)
@@ -303,6 +304,7 @@ def test_a_killed_run_resumes_where_it_stopped(tmp_path):
         assert np.array_equal(np.load(tmp_path / "out" / f"{v}.npy"), np.load(tmp_path / "again" / f"{v}.npy"))
 
 
+@pytest.mark.slow   # about 30 s; submitit itself is exercised by the sweep and study tests
 def test_shards_through_submitit_locally(tmp_path):
     videos = tmp_path / "videos"
     _camera_folder(videos)
