@@ -23,16 +23,16 @@ SMALL_STORE = ["videos_per_camera.train=5", "videos_per_camera.test=4"]
 #: The notebooks' parameters in the test suite (a few seconds to a minute each).
 SMALL = {
     "01_first_experiment": {"SCENARIO_OVERRIDES": SMALL_STORE, "EPOCHS": 3},
-    "02_ablation_study": {"SCENARIO_OVERRIDES": SMALL_STORE, "EPOCHS": 2, "SEEDS": 2,
+    "02_ablation_study": {"SCENARIO_OVERRIDES": SMALL_STORE, "EPOCHS": 2, "SEEDS": 2, "JOBS": 1,
                           "VARIANTS": {"ablation.toggle": ["none", "smoothness", "sparsity"]}},
     "03_your_own_features": {"EPOCHS": 5, "SCENARIO_OVERRIDES": [*SMALL_STORE, "crops=5"], "CLIPS_PER_CAMERA": 2,
                              "CLIP_SECONDS": 2},
-    "04_correlation_study": {"SEEDS": 2, "RHO_VALUES": [0.0, 0.97], "SHARE_VALUES": [0.0, 0.95], "EPOCHS": 2,
+    "04_correlation_study": {"SEEDS": 2, "RHO_VALUES": [0.0, 0.97], "SHARE_VALUES": [0.0, 0.95], "EPOCHS": 2, "JOBS": 1,
                              "SCENARIO_OVERRIDES": [*SMALL_STORE, "length.mean=60"]},
-    "05_operating_points": {"RECIPES": ["topk", "windows"], "SEEDS": 1, "EPOCHS": 2,
+    "05_operating_points": {"RECIPES": ["topk", "windows"], "SEEDS": 1, "EPOCHS": 2, "JOBS": 1,
                             "SCENARIO_OVERRIDES": ["videos_per_camera.train=4", "videos_per_camera.test=4",
                                                    "length.mean=40"]},
-    "06_your_own_data": {"RECIPES": ["topk", "windows"], "SEEDS": 2, "EPOCHS": 2},
+    "06_your_own_data": {"RECIPES": ["topk", "windows"], "SEEDS": 2, "EPOCHS": 2, "JOBS": 1},
 }
 
 
@@ -58,21 +58,28 @@ def generated(tree: Path) -> None:
         shutil.copy(REPO / "benchmarks" / "results" / name, bench / name)
 
 
-def execute_notebooks(into: Path, work: Path, small: bool, only: list[str] | None = None) -> dict[str, Path]:
-    """Every notebook executed with papermill (cwd ``work``) into ``into``; returns name -> path."""
+def execute_notebooks(into: Path, work: Path, small: bool, only: list[str] | None = None,
+                      parallel: int = 2) -> dict[str, Path]:
+    """Every notebook executed with papermill (cwd ``work``) into ``into``, ``parallel`` kernels at a
+    time (each notebook writes its own nb_work/NN folder); returns name -> path. A failing
+    notebook raises papermill's error naming the cell."""
+    from concurrent.futures import ThreadPoolExecutor
+
     import papermill
 
     into.mkdir(parents=True, exist_ok=True)
     work.mkdir(parents=True, exist_ok=True)
-    done = {}
-    for path in sorted((REPO / "notebooks").glob("*.ipynb")):
-        if only and path.stem not in only:
-            continue
+    paths = [p for p in sorted((REPO / "notebooks").glob("*.ipynb")) if not only or p.stem in only]
+
+    def run(path: Path) -> Path:
         out = into / path.name
         papermill.execute_notebook(str(path), str(out), parameters=SMALL.get(path.stem, {}) if small else {},
                                    cwd=str(work), kernel_name="python3", progress_bar=False)
-        done[path.stem] = out
-    return done
+        return out
+
+    with ThreadPoolExecutor(max(1, parallel)) as pool:
+        outs = list(pool.map(run, paths))
+    return {p.stem: o for p, o in zip(paths, outs)}
 
 
 def build_site(tree: Path, site: Path) -> None:

@@ -106,7 +106,8 @@ def torchvision_video_normalisation() -> tuple[list[float], list[float]]:
     tree = ast.parse(path.read_text())
     cls = next(n for n in tree.body if isinstance(n, ast.ClassDef) and n.name == "VideoClassification")
     init = next(n for n in cls.body if isinstance(n, ast.FunctionDef) and n.name == "__init__")
-    defaults = {a.arg: ast.literal_eval(d) for a, d in zip(init.args.kwonlyargs, init.args.kw_defaults) if d}
+    defaults = {a.arg: ast.literal_eval(d) for a, d in zip(init.args.kwonlyargs, init.args.kw_defaults)
+                if a.arg in ("mean", "std")}
     return list(defaults["mean"]), list(defaults["std"])
 
 
@@ -280,6 +281,7 @@ def test_shards_split_the_list_and_agree_with_one_process(tmp_path):
         extract_folder(videos, tmp_path / "one", model, Settings("mc3_18", "none", 5, None), progress=False)
 
 
+@pytest.mark.slow   # about 50 s (a kill mid-extraction, then the rest)
 def test_a_killed_run_resumes_where_it_stopped(tmp_path):
     videos = tmp_path / "videos"
     _camera_folder(videos)

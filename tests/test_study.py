@@ -236,3 +236,29 @@ def test_two_level_interval_over_cameras_and_seeds(study):
     seed_only = rep.table[(rep.table.metric == "frame_auc") & (rep.table.variant == rep.baseline)].iloc[0]
     assert got.loc[rep.baseline, "two_level_hi"] - got.loc[rep.baseline, "two_level_lo"] > 0
     assert "Δ [95% CI, cameras and seeds]" in s.report()._repr_html_() and seed_only.n == 2
+
+
+def test_reports_show_the_bag_embedding_baseline(study, small_store):
+    # Reference: the ten-line baseline written here with scikit-learn (common practice: each video's
+    # segment mean, max and min concatenated, standardised, logistic regression C = 0.1).
+    from sklearn.linear_model import LogisticRegression
+    from sklearn.metrics import roc_auc_score
+    from sklearn.pipeline import make_pipeline
+    from sklearn.preprocessing import StandardScaler
+
+    from wsad.store import FeatureStore
+
+    s, _, _ = study
+    store = FeatureStore(small_store)
+
+    def emb(v):
+        x = store.views(v).mean(axis=0).astype(np.float64)
+        return np.concatenate([x.mean(0), x.max(0), x.min(0)])
+
+    train, test = store.videos("train"), store.videos("test")
+    clf = make_pipeline(StandardScaler(), LogisticRegression(C=0.1, max_iter=5000))
+    clf.fit([emb(v) for v in train], [store.label(v) for v in train])
+    ref = roc_auc_score([store.label(v) for v in test], clf.decision_function([emb(v) for v in test]))
+    report = s.report()
+    assert report.baselines["baseline video_auc"].iloc[0] == pytest.approx(ref)
+    assert f"reaches video_auc {ref:.3f}" in report.to_markdown() and "bag-embedding baseline" in report._repr_html_()

@@ -89,6 +89,7 @@ def _sweep_through_submitit(server, store, tmp_path, runs: int, concurrent: int)
     assert list((tmp_path / "multirun").glob("*/*/.submitit"))
 
 
+@pytest.mark.slow   # about 45 s; make test keeps the refused logins and the long outage on this server
 def test_a_small_team_sweep_through_submitit(team_server, small_store, tmp_path):
     # the reduced version in make test: two jobs at once, the same checks as the 16-run sweep
     _sweep_through_submitit(team_server, small_store, tmp_path, runs=2, concurrent=2)

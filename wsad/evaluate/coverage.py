@@ -19,7 +19,8 @@ import pandas as pd
 from scipy import stats
 from scipy.signal import lfilter
 
-from .bootstrap import clustered_interval, grouped_bootstrap
+from .bootstrap import clustered_interval
+from .intervals import grouped_bootstrap
 from .metrics import VideoScores, roc_auc
 
 

@@ -98,15 +98,8 @@ CANDIDATES = ("jackknife", "clustered", "logit", "percentile", "bc", "bca")
 def candidate_intervals(videos: list[VideoScores], by: str, n_resamples: int, seed: int,
                         level: float = 0.95) -> dict[str, tuple[float, float]]:
     """Every candidate 95% frame-AUC interval of one test set, the resamples drawn once."""
-    from .bootstrap import (
-        bca_bounds,
-        clustered_auc,
-        clustered_interval,
-        grouped_bootstrap_values,
-        jackknife_interval,
-        jackknife_values,
-        logit_interval,
-    )
+    from .bootstrap import clustered_auc, clustered_interval, grouped_bootstrap_values
+    from .intervals import bca_bounds, jackknife_interval, jackknife_values, logit_interval
 
     point = clustered_auc(videos, by)[0]
     boot = grouped_bootstrap_values(videos, n_resamples, seed, by=by)[0]

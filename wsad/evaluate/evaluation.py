@@ -27,10 +27,11 @@ from .alarms import (
     rate_upper_bound,
     timelines,
 )
-from .bootstrap import INTERVALS, UNITS, grouped_bootstrap, macro_auc_interval
+from .bootstrap import UNITS
 from .catalogue import compute_metrics
 from .decision import choose_video_threshold, video_decision
 from .det import det_points
+from .intervals import INTERVALS, grouped_bootstrap, macro_auc_interval
 from .metrics import VideoScores, frame_table
 
 #: Below this many test cameras every interval is approximate: the run says so, with the coverage

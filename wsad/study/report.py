@@ -2,7 +2,6 @@
 notebook display, text exports and figures."""
 from __future__ import annotations
 
-import math
 from html import escape
 from pathlib import Path
 
@@ -11,48 +10,7 @@ import pandas as pd
 
 from ..errors import WsadError
 from ..report.tables import Report, build_report, latex_table, markdown_table
-
-
-class Plan:
-    """The runs a study implies (``runs``: store, variant, seed, status), and with an effect size
-    the seeds each comparison needs (``seeds``)."""
-
-    def __init__(self, study, effect: float | None, power: float):
-        self.study, self.effect, self.power = study, effect, power
-        self.runs = study.runs()
-        self.seeds = self._seeds() if effect is not None else None
-
-    def _seeds(self) -> pd.DataFrame:
-        from ..report.planning import plan_table
-
-        s = self.study
-        comparisons = max(len(s.variants) - 1, 1)   # Holm's first step: the strictest level the study uses
-        tables = []
-        for store, rep in StudyReport(s).reports.items():
-            t = plan_table(rep.table[rep.table.metric == s.primary], rep.baseline, self.effect, self.power,
-                           s.alpha, comparisons)
-            tables.append(t.assign(store=store))
-        return pd.concat(tables, ignore_index=True) if tables else pd.DataFrame()
-
-    def counts(self) -> dict[str, int]:
-        return self.runs.status.value_counts().to_dict()
-
-    def __repr__(self) -> str:
-        c = self.counts()
-        text = (f"study {self.study.name}: {len(self.runs)} runs ({len(self.study.stores)} store(s) x "
-                f"{len(self.study.variants)} variant(s) x {len(self.study.seeds)} seed(s)); "
-                + ", ".join(f"{v} {k}" for k, v in c.items()))
-        if self.seeds is not None and len(self.seeds):
-            text += "\n" + self.seeds.to_string(index=False)
-        return text
-
-    def _repr_html_(self) -> str:
-        head = escape(repr(self).splitlines()[0])
-        seeds = "" if self.seeds is None or not len(self.seeds) else (
-            f"<p>Seeds needed to detect {self.effect:g} in {escape(self.study.primary)} with power {self.power} "
-            f"(paired t at alpha {self.seeds.alpha.iloc[0]:.4g}, the level Holm's adjustment starts from)"
-            "</p>" + self.seeds.drop(columns="alpha").to_html(index=False))
-        return f"<p>{head}</p>{self.runs.drop(columns='folder').to_html(index=False)}{seeds}"
+from .html import _fmt, _html_table
 
 
 class StudyReport:
@@ -76,6 +34,20 @@ class StudyReport:
         if self.primary == "frame_auc":
             for rep in self.reports.values():
                 _add_two_level(rep)
+        self.baselines = self._baselines()
+
+    def _baselines(self) -> pd.DataFrame:
+        """Per store: the bag-embedding baseline's video AUC (no MIL training) beside each
+        variant's mean video AUC (:mod:`wsad.evaluate.baseline`)."""
+        from ..evaluate.baseline import baseline_video_auc
+        from ..store import FeatureStore
+
+        rows = []
+        for store, rep in self.reports.items():
+            ref = baseline_video_auc(FeatureStore(self.study.stores[store]))
+            t = rep.table[rep.table.metric == "video_auc"].set_index("variant")["mean"]
+            rows.append({"store": store, "baseline video_auc": ref, **{f"{v} video_auc": m for v, m in t.items()}})
+        return pd.DataFrame(rows)
 
     @property
     def table(self) -> pd.DataFrame:
@@ -88,6 +60,7 @@ class StudyReport:
         for store, rep in self.reports.items():
             head = f"**{store}**, {metric}\n\n" if len(self.reports) > 1 else ""
             parts.append(head + markdown_table(rep, metric))
+        parts.append(self._baseline_text())
         if len(self.failures):
             parts.append("Failed runs:\n\n" + "\n".join(f"- {r.variant}, seed {r.seed}: {r.error}"
                                                           for r in self.failures.itertuples()))
@@ -115,9 +88,22 @@ class StudyReport:
                     f"{self.study.alpha}). Intervals are 95% Student t over seeds; they say how much the result "
                     "moves with the seed, not with the test set. Other metrics: <code>.to_markdown(metric)</code>."
                     "</p>")
+        html.append(f"<p>{escape(self._baseline_text())}</p>")
         if len(self.failures):
             html.append("<p><b>Failed runs</b></p>" + self.failures.to_html(index=False))
         return "".join(html)
+
+    def _baseline_text(self) -> str:
+        parts = []
+        for r in self.baselines.to_dict("records"):
+            ref = r.pop("baseline video_auc")
+            store = r.pop("store")
+            mil = ", ".join(f"{k.removesuffix(' video_auc')} {v:.3f}" for k, v in r.items() if v == v)
+            where = f" on {store}" if len(self.baselines) > 1 else ""
+            parts.append(f"Reference{where}: the bag-embedding baseline (mean, max and min of each video's segments, "
+                         f"a logistic regression, no MIL training) reaches video_auc "
+                         f"{'n/a' if ref is None else f'{ref:.3f}'}; the variants' mean video_auc: {mil}.")
+        return " ".join(parts)
 
     def conclusion(self, metric: str | None = None) -> str:
         """What the table supports, in words: per variant, the paired difference with the baseline,
@@ -273,30 +259,3 @@ def _add_two_level(rep: Report, n: int = 500) -> None:
     rows = rep.table.metric == rep.primary
     for col in tl.columns:
         rep.table.loc[rows, col] = rep.table.loc[rows, "variant"].map(tl[col])
-
-
-def _fmt(x) -> str:
-    return "n/a" if x is None or (isinstance(x, float) and math.isnan(x)) else f"{x:.3f}"
-
-
-def _html_table(t: pd.DataFrame, rep: Report, metric: str) -> str:
-    two = "diff_two_level_lo" in t.columns
-    head = ["variant", "n", f"{metric} (mean ± sd)", "95% CI (seeds)", "Δ vs baseline [95% CI, seeds]", "p (Holm)"]
-    head += ["Δ [95% CI, cameras and seeds]"] if two else []
-    rows = []
-    for _, r in t.iterrows():
-        if r["variant"] == rep.baseline:
-            diff, p = "baseline", ""
-        else:
-            diff = f"{r['diff']:+.3f} [{_fmt(r['diff_lo'])}, {_fmt(r['diff_hi'])}]"
-            p = _fmt(r.get("p_holm"))
-            if r.get("significant"):
-                diff, p = f"<b>{diff}</b>", f"<b>{p}</b>"
-        cells = [escape(str(r["variant"])), str(r["n"]), f"{_fmt(r['mean'])} ± {_fmt(r['sd'])}",
-                 f"[{_fmt(r['lo'])}, {_fmt(r['hi'])}]", diff, p]
-        if two:
-            cells.append("" if r["variant"] == rep.baseline else
-                         f"[{_fmt(r.get('diff_two_level_lo'))}, {_fmt(r.get('diff_two_level_hi'))}]")
-        rows.append("<tr>" + "".join(f"<td style='text-align:left'>{c}</td>" for c in cells) + "</tr>")
-    return ("<table><thead><tr>" + "".join(f"<th style='text-align:left'>{escape(h)}</th>" for h in head)
-            + "</tr></thead><tbody>" + "".join(rows) + "</tbody></table>")

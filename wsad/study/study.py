@@ -94,7 +94,7 @@ class Study:
     def plan(self, effect: float | None = None, power: float = 0.8):
         """The runs the study implies and which are done; with ``effect`` (a difference in the
         primary metric), the seeds each comparison needs, from the spread the finished runs show."""
-        from .report import Plan
+        from .plan import Plan
 
         return Plan(self, effect, power)
 
