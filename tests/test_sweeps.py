@@ -73,6 +73,21 @@ def test_eight_runs_four_workers_fresh_sqlite(small_store, tmp_path):
     table = __import__("pandas").read_csv(tmp_path / "report" / "report.csv")
     fa = table[table.metric == "frame_auc"]
     assert (fa["n"] == 4).all() and fa["lo"].notna().all() and fa["p_wilcoxon"].notna().sum() == 1
+    # the two-level interval (test cameras and seeds) from the runs' exported scores equals the
+    # one computed from the run folders on disk (same draws: seed 0, 500 resamples)
+    from omegaconf import OmegaConf
+
+    from wsad.report.two_level import two_level_table
+    folders: dict = {}
+    for f in scored:
+        over = dict(o.split("=", 1) for o in OmegaConf.load(f.parents[1] / ".hydra" / "overrides.yaml"))
+        folders.setdefault(f"recipe={over['recipe']}", {})[int(over["seed"])] = str(f.parents[1])
+    base = fa[fa.p_t.isna()].variant.iloc[0]
+    want = two_level_table(folders, base, n=500).set_index("variant")
+    other = fa[fa.variant != base].iloc[0]
+    assert other["diff_two_level_lo"] == pytest.approx(want.loc[other.variant, "diff_two_level_lo"])
+    assert other["diff_two_level_hi"] == pytest.approx(want.loc[other.variant, "diff_two_level_hi"])
+    assert "cameras and seeds" in rep.stdout
     recall = table[table.metric == "alarm/event_recall"]   # the operating point, over seeds too
     assert len(recall) == 2 and (recall["n"] == 4).all()
     for png in ("frame_auc_by_variant.png", "roc_overlay.png", "learning_curves.png", "timelines.png",

@@ -34,6 +34,8 @@ def _main(argv: list[str]) -> int:
     by = [b.strip() for b in args.by.split(",")] if args.by else None
     rep = build_report(runs, by=by, baseline=args.baseline, metrics=reported(), alpha=args.alpha,
                        primary=args.metric)
+    if args.metric == "frame_auc":
+        _two_level(rep, uri)
     paths = write_report(rep, args.out, uri, headline=args.metric, plots=not args.no_plots, plan=args.plan)
     print(markdown_table(rep, args.metric))
     if args.plan is not None:  # the plan write_report made
@@ -47,6 +49,30 @@ def _main(argv: list[str]) -> int:
     for k, p in paths.items():
         print(f"  {k:<16} {p}")
     return 0
+
+
+def _two_level(rep, uri: str) -> None:
+    """Give the frame-AUC rows the two-level interval (test cameras and seeds): each run's
+    exported test scores are downloaded once; runs without them leave the rows as they are."""
+    import tempfile
+    from pathlib import Path
+
+    from ..report.two_level import add_two_level
+    from ..tracking.client import download
+
+    with tempfile.TemporaryDirectory(prefix="wsad-report-") as name:
+        tmp, folders = Path(name), []
+        for run_id in rep.runs.run_id:
+            want = tmp / run_id / "scores" / "test_scores.parquet"   # the layout of a run folder
+            got = download(uri, run_id, "scores/test_scores.parquet", want.parent)
+            if got is None or not got.is_file():   # a run that exported no scores
+                return
+            if got != want:
+                got.replace(want)
+            folders.append(str(tmp / run_id))
+        rep.runs["folder"] = folders
+        add_two_level(rep)
+        rep.runs.drop(columns="folder", inplace=True)
 
 
 def main() -> None:

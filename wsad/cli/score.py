@@ -15,14 +15,17 @@ def _main(argv: list[str]) -> int:
     if not argv or argv[0] in ("-h", "--help"):
         print(USAGE)
         return 0
+    from ..settings import parse_overrides
+
     opts = {}
     for a in argv:
         if "=" not in a:
             raise WsadError(f"argument {a!r} is not key=value\n{USAGE}")
-        k, v = a.split("=", 1)
+    for o in parse_overrides(argv):   # Hydra's grammar, as wsad-train reads it (quote a path holding ',')
+        k = o.key_or_group
         if k not in ("checkpoint", "data.root", "out", "split", "data.crops"):
             raise WsadError(f"unknown option {k!r}; use checkpoint=, data.root=, out=, split=")
-        opts[k] = v
+        opts[k] = str(o.value())
     for k in ("checkpoint", "data.root", "out"):
         if k not in opts:
             raise WsadError(f"{k}= is required\n{USAGE}")

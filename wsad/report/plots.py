@@ -142,7 +142,12 @@ def all_plots(rep, out: Path, tracking_uri: str | None, headline: str) -> dict[s
         paths["metric_plot"] = metric_plot(rep, headline, out / f"{headline}_by_variant.png")
     if tracking_uri is None:
         return paths
-    tmp = Path(tempfile.mkdtemp(prefix="wsad-report-"))
+    with tempfile.TemporaryDirectory(prefix="wsad-report-") as name:   # downloads go when done
+        return paths | _tracked_plots(rep, out, tracking_uri, headline, Path(name))
+
+
+def _tracked_plots(rep, out: Path, tracking_uri: str, headline: str, tmp: Path) -> dict[str, Path]:
+    paths = {}
     scores = {}
     for v, run_id in _one_run_per_variant(rep).items():
         df = _artifact(tracking_uri, run_id, "scores/test_scores.parquet", tmp)

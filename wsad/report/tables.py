@@ -139,8 +139,10 @@ def frame_markdown(df: pd.DataFrame, digits: int = 3, index: bool = False) -> st
 
 def markdown_table(rep: Report, metric: str) -> str:
     t = rep.table[rep.table.metric == metric]
+    two = "diff_two_level_lo" in t.columns
     lines = [f"| variant | n | {metric} mean ± sd | 95% CI | Δ vs baseline [95% CI] | p (paired t) "
-             "| p (Holm) | p (Wilcoxon) |", "|---|---|---|---|---|---|---|---|"]
+             "| p (Holm) | p (Wilcoxon) |" + (" Δ [95% CI, cameras and seeds] |" if two else ""),
+             "|---|---|---|---|---|---|---|---|" + ("---|" if two else "")]
     for _, r in t.iterrows():
         cell = f"{_fmt(r['mean'])} ± {_fmt(r['sd'])}"
         ci = f"[{_fmt(r['lo'])}, {_fmt(r['hi'])}]"
@@ -151,7 +153,15 @@ def markdown_table(rep: Report, metric: str) -> str:
             pt, ph, pw = _p(r["p_t"]), _p(r["p_holm"]), _p(r["p_wilcoxon"])
             if r.get("significant"):
                 diff, ph = f"**{diff}**", f"**{ph}**"
-        lines.append(f"| {r['variant']} | {r['n']} | {cell} | {ci} | {diff} | {pt} | {ph} | {pw} |")
+        row = f"| {r['variant']} | {r['n']} | {cell} | {ci} | {diff} | {pt} | {ph} | {pw} |"
+        if two:
+            row += (" baseline |" if r["variant"] == rep.baseline or pd.isna(r.get("diff_two_level_lo"))
+                    else f" [{_fmt(r['diff_two_level_lo'])}, {_fmt(r['diff_two_level_hi'])}] |")
+        lines.append(row)
+    if two:
+        lines.append("\n*Δ [95% CI, cameras and seeds]: the paired difference's interval when both the test "
+                     "cameras and the seeds are resampled (supports 'on cameras like these'; the one before it "
+                     "resamples seeds only: 'on this test set').*")
     if metric != rep.primary:
         lines.append(f"\n*{metric} is a secondary metric: its p-values are not adjusted across metrics and no "
                      f"difference is marked; the study's primary metric is {rep.primary}.*")

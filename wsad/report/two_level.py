@@ -40,6 +40,22 @@ def camera_resamples(folders: dict[str, dict[str, str]], n: int, seed: int) -> d
             for v, runs in folders.items()}
 
 
+def add_two_level(rep, n: int = 500) -> bool:
+    """The primary metric's rows of report ``rep`` (its runs with a ``folder`` column holding
+    ``scores/test_scores.parquet``) get the two-level intervals. Runs scored on different test
+    videos cannot share camera resamples: then nothing is added and False is returned."""
+    tests = {tuple(sorted(pd.read_parquet(Path(f) / "scores" / "test_scores.parquet", columns=["video"])
+                          .video.astype(str).unique())) for f in rep.runs.folder}
+    if len(tests) != 1:
+        return False
+    folders = {v: dict(zip(sub.seed, sub.folder)) for v, sub in rep.runs.groupby("variant", sort=False)}
+    tl = two_level_table(folders, rep.baseline, n=n).set_index("variant")
+    rows = rep.table.metric == rep.primary
+    for col in tl.columns:
+        rep.table.loc[rows, col] = rep.table.loc[rows, "variant"].map(tl[col])
+    return True
+
+
 def two_level_table(folders: dict[str, dict[str, str]], baseline: str, n: int = 1000, seed: int = 0,
                     level: float = 0.95) -> pd.DataFrame:
     """Per variant: the two-level interval of its mean frame AUC and of its paired difference

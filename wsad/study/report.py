@@ -10,6 +10,7 @@ import pandas as pd
 
 from ..errors import WsadError
 from ..report.tables import Report, build_report, latex_table, markdown_table
+from ..report.two_level import add_two_level
 from .html import _fmt, _html_table
 
 
@@ -33,7 +34,7 @@ class StudyReport:
         self.failures = status[status.status == "failed"][["store", "variant", "seed", "error"]].reset_index(drop=True)
         if self.primary == "frame_auc":
             for rep in self.reports.values():
-                _add_two_level(rep)
+                add_two_level(rep)
         self.baselines = self._baselines()
 
     def _baselines(self) -> pd.DataFrame:
@@ -248,14 +249,3 @@ class StudyReport:
         runs = self._report(store).runs
         return {v: Run.from_folder(sub.sort_values("seed").folder.iloc[0])
                 for v, sub in runs.groupby("variant", sort=False)}
-
-
-def _add_two_level(rep: Report, n: int = 500) -> None:
-    """The primary metric's rows get the two-level intervals (cameras and seeds together)."""
-    from ..report.two_level import two_level_table
-
-    folders = {v: dict(zip(sub.seed, sub.folder)) for v, sub in rep.runs.groupby("variant", sort=False)}
-    tl = two_level_table(folders, rep.baseline, n=n).set_index("variant")
-    rows = rep.table.metric == rep.primary
-    for col in tl.columns:
-        rep.table.loc[rows, col] = rep.table.loc[rows, "variant"].map(tl[col])

@@ -42,7 +42,7 @@ def train(cfg: DictConfig, overrides: list[str] | None = None, sinks: list[Sink]
 
 def _train(cfg: DictConfig, overrides: list[str] | None, sinks: list[Sink]) -> RunResult:
     state = None
-    if cfg.trainer.get("resume"):
+    if cfg.trainer.resume:
         cfg, state = resume_point(cfg)
     else:
         apply_ablation(cfg)

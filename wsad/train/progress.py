@@ -53,7 +53,7 @@ class Progress:
         self.history.append({"epoch": epoch, **row})
         if trainer.select == "weak_val":   # the same rule as the epoch-count choice before a refit
             best, value = pick_epoch([r["weak_val_video_auc"] for r in self.history],
-                                     int(trainer.get("select_smooth", 1)), int(trainer.get("min_epoch", 1)))
+                                     int(trainer.select_smooth), int(trainer.min_epoch))
         else:
             best, value = epoch, epoch
         if best == epoch:

@@ -50,7 +50,7 @@ def open_sinks(cfg: DictConfig, overrides, s: Setup, extra: list[Sink] | None = 
         from ..publish.tracked import TrackingSink
 
         sinks.append(TrackingSink(cfg, overrides, str(s.store.root), store_fingerprint(s.store.root),
-                                  cfg.trainer.get("resume")))
+                                  cfg.trainer.resume))
     return Sinks(sinks + list(extra or []))
 
 

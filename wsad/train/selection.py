@@ -73,7 +73,7 @@ def too_small(store, val_videos: list[str]) -> str | None:
 
 def chooses_epochs(cfg: DictConfig) -> bool:
     """Whether the run first chooses an epoch count, then refits on all training videos."""
-    return int(cfg.trainer.get("weak_val_folds", 1)) > 1 or bool(cfg.trainer.get("refit"))
+    return int(cfg.trainer.weak_val_folds) > 1 or bool(cfg.trainer.refit)
 
 
 def refit_config(cfg: DictConfig, epochs: int) -> DictConfig:

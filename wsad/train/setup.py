@@ -162,9 +162,9 @@ def build(cfg: DictConfig) -> Setup:
         raise WsadError(f"the store {cfg.data.root} has {len(errors)} problem(s), first: {errors[0]}; "
                         f"run wsad-check {cfg.data.root}")
     store = FeatureStore(cfg.data.root, crops=cfg.data.crops)
-    folds = int(cfg.trainer.get("weak_val_folds", 1))
+    folds = int(cfg.trainer.weak_val_folds)
     fit_videos, val_videos = weak_validation_split(store, float(cfg.trainer.weak_val_share), folds,
-                                                   int(cfg.trainer.get("weak_val_fold", 0)))
+                                                   int(cfg.trainer.weak_val_fold))
     if cfg.trainer.select == "weak_val" and not val_videos:
         raise WsadError("trainer.select=weak_val needs trainer.weak_val_share > 0")
     resolve_interval_unit(cfg, store)
@@ -182,15 +182,15 @@ def build(cfg: DictConfig) -> Setup:
 
 def check_selection(trainer: DictConfig, epochs: int) -> None:
     """The model-selection settings (see :mod:`wsad.train.selection`)."""
-    smooth, min_epoch = int(trainer.get("select_smooth", 1)), int(trainer.get("min_epoch", 1))
-    folds = int(trainer.get("weak_val_folds", 1))
+    smooth, min_epoch = int(trainer.select_smooth), int(trainer.min_epoch)
+    folds = int(trainer.weak_val_folds)
     if smooth < 1:
         raise WsadError(f"trainer.select_smooth={smooth}; use 1 (no smoothing) or a window of epochs")
     if not 1 <= min_epoch <= epochs:
         raise WsadError(f"trainer.min_epoch={min_epoch}; use 1..trainer.epochs ({epochs})")
     if folds < 1:
         raise WsadError(f"trainer.weak_val_folds={folds}; use 1 (one held-out share) or k >= 2 folds")
-    if (folds > 1 or trainer.get("refit")) and trainer.select != "weak_val":
+    if (folds > 1 or trainer.refit) and trainer.select != "weak_val":
         raise WsadError("trainer.weak_val_folds > 1 and trainer.refit select an epoch count on weak "
                         "validation; they need trainer.select=weak_val")
 
@@ -199,7 +199,7 @@ def resolve_interval_unit(cfg: DictConfig, store: FeatureStore) -> None:
     """``trainer.bootstrap_by``: the unit intervals treat as independent. Unset, it is the
     camera (videos of one camera share its background); the chosen value is what the run
     logs as its param."""
-    by = cfg.trainer.get("bootstrap_by") or "group"
+    by = cfg.trainer.bootstrap_by or "group"
     with open_dict(cfg):
         cfg.trainer.bootstrap_by = by
 
@@ -208,7 +208,7 @@ def draws_plots(cfg: DictConfig) -> bool:
     """``trainer.plots``: true, false, or auto: a single run draws its plots; the runs of a
     sweep leave them out (~1 s of each run, with matplotlib's import), since wsad-report
     draws the sweep's overlays from the same exported scores."""
-    value = cfg.trainer.get("plots", "auto")
+    value = cfg.trainer.plots
     return not in_multirun() if value == "auto" else bool(value)
 
 
