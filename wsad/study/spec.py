@@ -5,7 +5,7 @@ from __future__ import annotations
 
 import itertools
 import re
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 from typing import Any
 
@@ -24,6 +24,7 @@ class RunSpec:
     seed: int
     overrides: tuple[str, ...]     # everything wsad-train would be given
     fingerprint: str               # of the resolved config and the store's content
+    config: Any = field(default=None, compare=False, repr=False)   # composed once, when planned
 
 
 def as_overrides(values: dict | list | tuple | None) -> list[str]:

@@ -69,7 +69,7 @@ class Study:
                                  f"seed={seed}")
                     cfg = compose_config(list(overrides))
                     out.append(RunSpec(root, store_name, label(values), tuple(values.items()), seed,
-                                       overrides, settings_fingerprint(cfg, fp)))
+                                       overrides, settings_fingerprint(cfg, fp), cfg))
         return out
 
     def run_folder(self, spec: RunSpec) -> Path:
@@ -111,7 +111,9 @@ class Study:
         if not todo:
             return self.runs()
         parent = self._parent_run()
-        extra = ["trainer.threads=1"] if jobs > 1 or launcher else []
+        extra = {"trainer.threads": 1} if jobs > 1 or launcher else {}
+        if not any(o.split("=", 1)[0] == "trainer.plots" for o in self.base):
+            extra["trainer.plots"] = False   # the report draws the overlays from the exported scores
         bar = tqdm(total=len(todo), desc=f"study {self.name}", unit="run")
         try:
             if launcher:
@@ -120,10 +122,10 @@ class Study:
                     bar.update()
             elif jobs <= 1:
                 for spec in todo:
-                    self._record(spec, execute([*spec.overrides, *extra], str(self.run_folder(spec)), parent))
+                    self._record(spec, execute(spec, str(self.run_folder(spec)), parent, extra))
                     bar.update()
             else:
-                futures = {submit(jobs, [*spec.overrides, *extra], str(self.run_folder(spec)), parent): spec
+                futures = {submit(jobs, spec, str(self.run_folder(spec)), parent, extra): spec
                            for spec in todo}
                 for f in as_completed(futures):
                     self._record(futures[f], f.result())
@@ -133,7 +135,7 @@ class Study:
             self._close_parent(parent)
         return self.runs()
 
-    def _scheduled(self, todo: list[RunSpec], extra: list[str], parent: str | None, launcher):
+    def _scheduled(self, todo: list[RunSpec], extra: dict, parent: str | None, launcher):
         """The runs as submitit jobs (one array), yielding (spec, result) as they end."""
         import submitit
 
@@ -146,7 +148,7 @@ class Study:
         ex = submitit.AutoExecutor(folder=str(self.folder / "submitit" / "%j"), cluster=cluster)
         ex.update_parameters(**{"timeout_min": 60, "cpus_per_task": 1, **opts})
         with ex.batch():
-            jobs = [ex.submit(execute, [*s.overrides, *extra], str(self.run_folder(s)), parent) for s in todo]
+            jobs = [ex.submit(execute, s, str(self.run_folder(s)), parent, extra) for s in todo]
         for spec, job in zip(todo, jobs):
             try:
                 yield spec, job.result()

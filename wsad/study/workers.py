@@ -36,14 +36,15 @@ def _warm() -> None:
     load()
 
 
-def execute(overrides: list[str], out_dir: str, parent: str | None = None) -> dict:
-    """Train one run (in a worker or in this process): ``{"ok", "error", "seconds", "run_id"}``."""
+def execute(spec, out_dir: str, parent: str | None = None, settings: dict | None = None) -> dict:
+    """Train one run (in a worker or in this process): ``{"ok", "error", "seconds", "run_id"}``.
+    ``spec``: a :class:`~wsad.study.spec.RunSpec` (its config composed when the study was
+    planned, so a worker does not compose it again) or a list of overrides; ``settings``: keys
+    set on top (``{"trainer.threads": 1}``)."""
     import warnings
 
-    from ..config import compose_config
     from ..errors import WsadError
     from ..train import train
-    from .spec import quote
 
     started = time.perf_counter()
     if parent:
@@ -51,7 +52,9 @@ def execute(overrides: list[str], out_dir: str, parent: str | None = None) -> di
     try:
         with warnings.catch_warnings():
             warnings.simplefilter("ignore")   # the run keeps its own warnings in summary.json
-            res = train(compose_config([*overrides, f"trainer.out_dir={quote(out_dir)}", "trainer.progress=false"]))
+            cfg, overrides = _config(spec, {**(settings or {}), "trainer.out_dir": out_dir,
+                                            "trainer.progress": False})
+            res = train(cfg, overrides)
         return {"ok": True, "error": None, "seconds": time.perf_counter() - started, "run_id": res.run_id}
     except WsadError as err:
         return {"ok": False, "error": str(err), "seconds": time.perf_counter() - started, "run_id": None}
@@ -61,6 +64,25 @@ def execute(overrides: list[str], out_dir: str, parent: str | None = None) -> di
                 "seconds": time.perf_counter() - started, "run_id": None}
     finally:
         os.environ.pop(PARENT_ID, None)
+
+
+def _config(spec, settings: dict):
+    """The run's config with ``settings`` set, and the overrides that name the run."""
+    from omegaconf import OmegaConf, open_dict
+
+    if isinstance(spec, (list, tuple)) or spec.config is None:
+        from ..config import compose_config
+        from .spec import quote
+
+        overrides = list(spec if isinstance(spec, (list, tuple)) else spec.overrides)
+        cfg = compose_config([*overrides, *(f"{k}={quote(str(v).lower() if isinstance(v, bool) else str(v))}"
+                                            for k, v in settings.items())])
+        return cfg, overrides
+    cfg = spec.config.copy()
+    with open_dict(cfg):
+        for key, value in settings.items():
+            OmegaConf.update(cfg, key, value, merge=False)
+    return cfg, list(spec.overrides)
 
 
 def pool(jobs: int) -> ProcessPoolExecutor:
@@ -74,13 +96,13 @@ def pool(jobs: int) -> ProcessPoolExecutor:
     return p
 
 
-def submit(jobs: int, overrides: list[str], out_dir: str, parent: str | None) -> Future:
+def submit(jobs: int, spec, out_dir: str, parent: str | None, settings: dict | None = None) -> Future:
     """One run on the pool; a pool broken by a crashed worker is replaced once."""
     try:
-        return pool(jobs).submit(execute, overrides, out_dir, parent)
+        return pool(jobs).submit(execute, spec, out_dir, parent, settings)
     except BrokenProcessPool:
         _POOLS.pop(jobs, None)
-        return pool(jobs).submit(execute, overrides, out_dir, parent)
+        return pool(jobs).submit(execute, spec, out_dir, parent, settings)
 
 
 def shutdown() -> None:
