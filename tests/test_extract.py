@@ -137,14 +137,14 @@ def test_features_equal_the_reference_forward(name):
 
 
 def test_pipeline_equals_the_model_on_each_clip_in_any_batch(tmp_path):
-    path = encode(tmp_path / "v.mkv", 16 * 5 + 3)
+    path = encode(tmp_path / "v.mkv", 16 * 3 + 3)
     model = _random("mc3_18")
     clips = [prepare_clip(c) for c in ClipReader(path)]
     with torch.no_grad():
         direct = torch.cat([model.features(c) for c in clips]).numpy()
     for batch in (2, 8):   # a partial last batch, and all in one
         got = extract_video(path, model, batch=batch)
-        assert got.features.shape == (5, 512) and got.frames == 83 and got.fps == 25.0
+        assert got.features.shape == (3, 512) and got.frames == 51 and got.fps == 25.0
         assert np.allclose(got.features, direct, atol=1e-5)
     five = extract_video(encode(tmp_path / "short.mkv", 20), model, crops=5)
     assert five.features.shape == (5, 1, 512) and five.frames == 20
@@ -215,8 +215,8 @@ def _cli(cwd: Path, *args, **kw):
 
 
 def _camera_folder(root: Path) -> dict[str, int]:
-    lengths = {"cam1/a": 40, "cam1/b": 52, "cam2/c": 33, "cam2/d": 20, "cam3/e": 47, "cam3/f": 36,
-               "cam4/g": 64, "cam4/h": 10}
+    lengths = {"cam1/a": 20, "cam1/b": 33, "cam2/c": 17, "cam2/d": 16, "cam3/e": 41, "cam3/f": 15,
+               "cam4/g": 32, "cam4/h": 10}   # 1-2 segments each, two shorter than one
     for name, n in lengths.items():
         encode(root / f"{name}.mkv", n)
     return {k.split("/")[1]: v for k, v in lengths.items()}
@@ -236,7 +236,7 @@ def test_folder_to_a_checked_store_that_trains(tmp_path):
     labels = template.assign(label=[1, 0, 1, 0, 1, 0, 1, 0],
                              split=["train"] * 4 + ["test"] * 4)[["video", "label", "split"]]
     labels.to_csv(tmp_path / "labels.csv", index=False)
-    pd.DataFrame({"video": ["e", "g"], "start": [16, 20], "end": [40, 60]}).to_csv(tmp_path / "events.csv",
+    pd.DataFrame({"video": ["e", "g"], "start": [16, 20], "end": [40, 30]}).to_csv(tmp_path / "events.csv",
                                                                                   index=False)
     res = _cli(tmp_path, str(videos), "--out", str(tmp_path / "store"), "--weights", "none", "--backbone",
                "mc3_18", "--fps", "25", "--labels", str(tmp_path / "labels.csv"), "--events",

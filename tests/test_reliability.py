@@ -202,8 +202,8 @@ def test_resume_of_unknown_or_finished_run_is_a_clear_error(small_store, tmp_pat
     assert res.returncode == 2 and "no such run" in res.stderr and "Traceback" not in res.stderr
 
 
-@pytest.mark.parametrize("delay", [pytest.param(3.0, marks=pytest.mark.slow), 5.0, 7.5,
-                                   pytest.param(10.0, marks=pytest.mark.slow)])
+@pytest.mark.parametrize("delay", [pytest.param(3.0, marks=pytest.mark.slow), pytest.param(5.0, marks=pytest.mark.slow),
+                                   7.5, pytest.param(10.0, marks=pytest.mark.slow)])
 def test_hard_kill_leaves_stores_readable_and_a_rerun_works(small_store, tmp_path, delay):
     fp = store_fingerprint(small_store)
     before = tree_hash(small_store)

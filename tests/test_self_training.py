@@ -101,6 +101,7 @@ def _state(path):
         return 0, 0
 
 
+@pytest.mark.slow   # about 40 s; make test resumes a killed run in test_reliability (one stage)
 def test_stopped_in_stage_two_resumes_to_identical_scores(small_store, tmp_path):
     common = [f"data.root={small_store}", "recipe=self_training", "trainer.epochs=2", "self_training.stage2.epochs=40",
               "trainer.progress=false", "trainer.bootstrap=0", "seed=1"]

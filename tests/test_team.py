@@ -89,13 +89,13 @@ def _sweep_through_submitit(server, store, tmp_path, runs: int, concurrent: int)
     assert list((tmp_path / "multirun").glob("*/*/.submitit"))
 
 
-@pytest.mark.slow   # about 45 s; make test keeps the refused logins and the long outage on this server
+@pytest.mark.slow   # about 45 s; make test keeps the refused logins on this server
 def test_a_small_team_sweep_through_submitit(team_server, small_store, tmp_path):
     # the reduced version in make test: two jobs at once, the same checks as the 16-run sweep
     _sweep_through_submitit(team_server, small_store, tmp_path, runs=2, concurrent=2)
 
 
-@pytest.mark.slow   # about 3 minutes; make test runs the reduced sweep above and the long outage
+@pytest.mark.slow   # about 3 minutes; the reduced sweep above is its shorter form
 def test_sixteen_runs_four_at_a_time(team_server, small_store, tmp_path):
     _sweep_through_submitit(team_server, small_store, tmp_path, runs=16, concurrent=4)
 
@@ -132,7 +132,7 @@ def _wait_for_epochs(server, experiment: str, runs: int, step: int, proc, timeou
     raise AssertionError(f"{runs} run(s) never reached epoch {step}")
 
 
-@pytest.mark.slow   # about 90 s; make test runs the long outage below
+@pytest.mark.slow   # about 90 s; the long outage below too (make test-slow)
 def test_a_short_outage_mid_sweep_loses_nothing(team_server, small_store, tmp_path):
     exp, epochs = "outage_short", 16
     proc = wsad_train(tmp_path, "-m", f"data.root={small_store}", *BASE, f"trainer.epochs={epochs}",
@@ -153,6 +153,7 @@ def test_a_short_outage_mid_sweep_loses_nothing(team_server, small_store, tmp_pa
         assert {"frame_auc", "alarm/threshold", "selected_epoch"} <= set(r.data.metrics)
 
 
+@pytest.mark.slow   # about 70 s (three training processes and the client's retry budget)
 def test_a_long_outage_stops_the_run_cleanly_and_it_resumes(team_server, small_store, tmp_path):
     exp, epochs = "outage_long", 16
     args = [f"data.root={small_store}", *BASE, f"trainer.epochs={epochs}", "seed=5",
