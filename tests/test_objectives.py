@@ -79,6 +79,7 @@ def test_sinusoidal_positions_follow_the_formula():
 
 
 @pytest.mark.parametrize("head", [SelfAttentionHead(8, [16, 4], 4, 32, 0.0),
+                                  SelfAttentionHead(8, [16, 4], 4, 32, 0.0, positions="sinusoidal"),
                                   DilatedConvHead(8, [16, 4], (1, 2, 4), 0.0)])
 def test_new_heads_ignore_padding(head):
     torch.manual_seed(0)

@@ -39,22 +39,35 @@ def masked_self_attention(h: torch.Tensor, mask: torch.Tensor, w_in: torch.Tenso
     return out.transpose(1, 2).reshape(b, t, e) @ w_out.T + b_out
 
 
+POSITIONS = ("none", "sinusoidal")
+
+
 class SelfAttentionHead(nn.Module):
-    """h = W x + PE (sinusoidal positions); one post-norm transformer encoder layer,
-    h = LN(h + MHSA(h)), h = LN(h + FFN(h)), with attention keys limited to the bag's
-    real segments; then the MLP scorer on each h_t. Padding never reaches a real
-    segment's output.
+    """h = W x (+ PE, sinusoidal positions, with ``positions="sinusoidal"``); one post-norm
+    transformer encoder layer, h = LN(h + MHSA(h)), h = LN(h + FFN(h)), with attention keys
+    limited to the bag's real segments; then the MLP scorer on each h_t. Padding never
+    reaches a real segment's output.
+
+    Positions are off by default: in fixed-camera footage an event can start at any time, so
+    a segment's absolute position carries no evidence, and with few training videos the head
+    learned position instead of content. Measured (topk recipe, 30 epochs): on the open digits
+    stream, instance AUC over seeds 0/1/2 was 0.628/0.892/0.856 with sinusoidal positions and
+    0.948/0.965/0.939 without; on the warehouse demo store, frame AUC 0.632 with and 0.714 without.
+    The encoder's published form (Vaswani et al.) is ``positions="sinusoidal"``.
 
     Shape:
         x: [N, D] packed or [B, T, D] padded; mask: [B, T]; logits [B, T], embeddings [B, T, H].
     """
 
     def __init__(self, in_dim: int, hidden: Sequence[int] = (128, 32), heads: int = 4, ffn: int = 256,
-                 dropout: float = 0.3):
+                 dropout: float = 0.3, positions: str = "none"):
         super().__init__()
         hidden = check_sizes(hidden)
         if int(heads) < 1 or hidden[0] % int(heads):
             raise WsadError(f"head.heads={heads}; it must divide head.hidden[0]={hidden[0]}")
+        if positions not in POSITIONS:
+            raise WsadError(f"head.positions={positions}; use one of {', '.join(POSITIONS)}")
+        self.positions = positions
         self.heads = int(heads)
         e = hidden[0]
         self.embed = nn.Linear(in_dim, e)
@@ -67,7 +80,9 @@ class SelfAttentionHead(nn.Module):
 
     def forward(self, x: torch.Tensor, mask: torch.Tensor) -> HeadOutput:
         x = padded(x, mask)
-        h = self.embed(x) + sinusoidal_positions(x.shape[1], self.embed.out_features).to(x.dtype)
+        h = self.embed(x)
+        if self.positions == "sinusoidal":
+            h = h + sinusoidal_positions(x.shape[1], self.embed.out_features).to(x.dtype)
         att = masked_self_attention(h, mask, self.in_proj.weight, self.in_proj.bias, self.out_proj.weight,
                                     self.out_proj.bias, self.heads)
         h = self.norm1(h + self.drop(att))
