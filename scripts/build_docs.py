@@ -26,7 +26,7 @@ SMALL = {
     "02_ablation_study": {"SCENARIO_OVERRIDES": SMALL_STORE, "EPOCHS": 2, "SEEDS": 2, "JOBS": 1,
                           "VARIANTS": {"ablation.toggle": ["none", "smoothness", "sparsity"]}},
     "03_your_own_features": {"EPOCHS": 5, "SCENARIO_OVERRIDES": [*SMALL_STORE, "crops=5"], "CLIPS_PER_CAMERA": 2,
-                             "CLIP_SECONDS": 2},
+                             "CLIP_SECONDS": 1.3},
     "04_correlation_study": {"SEEDS": 2, "RHO_VALUES": [0.0, 0.97], "SHARE_VALUES": [0.0, 0.95], "EPOCHS": 2, "JOBS": 1,
                              "SCENARIO_OVERRIDES": [*SMALL_STORE, "length.mean=60"]},
     "05_operating_points": {"RECIPES": ["topk", "windows"], "SEEDS": 1, "EPOCHS": 2, "JOBS": 1,

@@ -131,6 +131,7 @@ def test_elephant_bags_read_as_published():
 # Published bag accuracies for reference, from memory: mi-SVM 82.2, MI-SVM 81.4 (Andrews et al.
 # 2003), attention MIL 86.8 (Ilse et al. 2018). Measured here with the defaults (topk recipe,
 # weak validation, video_threshold), seed 0: 0.86 mean over the five folds.
+@pytest.mark.slow   # about 20 s; one fold assignment only (the open-collections script compares several)
 def test_elephant_five_fold_bag_accuracy_with_the_defaults(tmp_path):
     feats, labels = read_bags(elephant_csv())
     names = sorted(feats)

@@ -177,7 +177,7 @@ def test_operating_point_explorer_recomputes_as_the_budget_moves(study):
     assert explorer.shown["budget"] == 100.0 and len(explorer.shown["cameras"]) == len(test.group.unique())
 
 
-def test_study_file_through_the_command_and_a_local_scheduler(small_store, tmp_path):
+def test_study_file_through_the_command_and_a_local_scheduler(small_store, tmp_path, monkeypatch, capsys):
     study_file = tmp_path / "bays.yaml"
     study_file.write_text(f"stores: [{small_store}]\nbase: {{recipe: topk, trainer.epochs: 1, trainer.bootstrap: 0,"
                           f" tracking.enabled: false}}\nvariants: {{head: [mlp]}}\nseeds: 2\n"
@@ -188,13 +188,19 @@ def test_study_file_through_the_command_and_a_local_scheduler(small_store, tmp_p
     assert res.returncode == 0, res.stderr[-3000:]
     assert "2 of 2 runs done" in res.stdout and (tmp_path / "bays" / "report.md").is_file()
     assert list((tmp_path / "bays" / "submitit").glob("*/*_result.pkl"))   # scheduler jobs ran
-    again = subprocess.run([sys.executable, "-c", code, str(study_file), "--plan"], capture_output=True,
-                           text=True, timeout=300, cwd=tmp_path)
-    assert again.returncode == 0 and "2 done" in again.stdout
+    # the same command in this process (what its console script calls), for the plan and a bad file
+    from wsad.cli.study import PROG, _main
+    from wsad.errors import guarded
+
+    monkeypatch.chdir(tmp_path)
+    assert guarded(lambda: _main([str(study_file), "--plan"]), PROG) == 0
+    assert "2 done" in capsys.readouterr().out
     study_file.write_text("stores: [nowhere]\n")
-    bad = subprocess.run([sys.executable, "-c", code, str(study_file)], capture_output=True, text=True,
-                         timeout=300, cwd=tmp_path)
-    assert bad.returncode == 2 and "is not a feature store" in bad.stderr and "Traceback" not in bad.stderr
+    with pytest.raises(SystemExit) as stop:
+        guarded(lambda: _main([str(study_file)]), PROG)
+    assert stop.value.code == 2
+    err = capsys.readouterr().err
+    assert "is not a feature store" in err and "Traceback" not in err and len(err.strip().splitlines()) == 1
 
 
 def test_two_level_interval_over_cameras_and_seeds(study):
