@@ -125,6 +125,7 @@ def _train(store, tmp_path, recipe, *extra):
                                  *extra]))
 
 
+@pytest.mark.slow   # about 12 s on the invented scenario; make test checks the recipe learning on the digits stream
 def test_magnitude_recipe_separates_feature_magnitudes(demo_store, tmp_path):
     # What the objective asks for, measured on held-out test videos: the k largest embedding
     # norms of anomalous videos end above those of normal videos (Tian et al., ICCV 2021).

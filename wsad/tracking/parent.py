@@ -11,6 +11,7 @@ import time
 from pathlib import Path
 
 from ..files import atomic_path
+from .sqlite import process_alive
 
 #: "host pid path": the file the launching process writes its parent run id into.
 PARENT_FILE = "WSAD_SWEEP_PARENT"
@@ -43,16 +44,6 @@ def parent_run_id(timeout: float = 120.0) -> str | None:
         return None
     path, deadline = Path(where), time.monotonic() + timeout
     local = host == socket.gethostname() and pid.isdigit()
-    while not path.is_file() and time.monotonic() < deadline and (not local or _alive(int(pid))):
+    while not path.is_file() and time.monotonic() < deadline and (not local or process_alive(int(pid))):
         time.sleep(0.05)
     return path.read_text().strip() or None if path.is_file() else None
-
-
-def _alive(pid: int) -> bool:
-    try:
-        os.kill(pid, 0)
-    except ProcessLookupError:
-        return False
-    except PermissionError:
-        return True
-    return True

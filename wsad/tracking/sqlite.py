@@ -33,11 +33,12 @@ def _wait_for_launcher(path: Path, timeout: float = 120.0) -> None:
     if where != str(path) or host != socket.gethostname() or not pid.isdigit() or int(pid) == os.getpid():
         return
     deadline = time.monotonic() + timeout
-    while not path.exists() and time.monotonic() < deadline and _alive(int(pid)):
+    while not path.exists() and time.monotonic() < deadline and process_alive(int(pid)):
         time.sleep(0.05)
 
 
-def _alive(pid: int) -> bool:
+def process_alive(pid: int) -> bool:
+    """Whether process ``pid`` on this machine still exists (one owned by another user counts)."""
     try:
         os.kill(pid, 0)
     except ProcessLookupError:
