@@ -92,7 +92,9 @@ def build_site(tree: Path, site: Path) -> None:
     conf = tree.parent / "mkdocs.yml"
     conf.write_text(yaml.safe_dump(cfg, sort_keys=False))
     exe = Path(sys.executable).with_name("mkdocs")
-    res = subprocess.run([str(exe), "build", "--strict", "-q", "-f", str(conf)], capture_output=True, text=True)
+    # cwd: mkdocs-jupyter keeps its cache in a relative .cache/ folder; in the work folder, not the checkout
+    res = subprocess.run([str(exe), "build", "--strict", "-q", "-f", str(conf)], capture_output=True, text=True,
+                         cwd=tree.parent)
     if res.returncode != 0:
         raise SystemExit(f"mkdocs build failed:\n{res.stdout}\n{res.stderr}")
 
