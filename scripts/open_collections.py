@@ -31,17 +31,13 @@ def csv_path(name: str) -> Path:
 
 def baseline(feats, labels, train, test, kernel: str) -> tuple[float, float]:
     """(bag AUC, balanced accuracy) of the bag-embedding baseline on one fold."""
-    from sklearn.linear_model import LogisticRegression
     from sklearn.metrics import balanced_accuracy_score, roc_auc_score
-    from sklearn.pipeline import make_pipeline
-    from sklearn.preprocessing import StandardScaler
-    from sklearn.svm import SVC
 
-    from wsad.evaluate.baseline import bag_embedding
+    from wsad.evaluate.baseline import bag_embedding, baseline_model
 
     x = {n: bag_embedding(feats[n]) for n in train + test}
-    model = LogisticRegression(C=0.1, max_iter=5000) if kernel == "logistic" else SVC(C=10, kernel="rbf")
-    clf = make_pipeline(StandardScaler(), model).fit([x[n] for n in train], [labels[n] for n in train])
+    model = baseline_model(0.1, "linear") if kernel == "logistic" else baseline_model(10.0, "rbf")
+    clf = model.fit([x[n] for n in train], [labels[n] for n in train])
     y = [labels[n] for n in test]
     xt = [x[n] for n in test]
     return float(roc_auc_score(y, clf.decision_function(xt))), float(balanced_accuracy_score(y, clf.predict(xt)))

@@ -63,12 +63,10 @@ def _two_level(rep, uri: str) -> None:
     with tempfile.TemporaryDirectory(prefix="wsad-report-") as name:
         tmp, folders = Path(name), []
         for run_id in rep.runs.run_id:
-            want = tmp / run_id / "scores" / "test_scores.parquet"   # the layout of a run folder
-            got = download(uri, run_id, "scores/test_scores.parquet", want.parent)
+            # into <run>/scores/: the layout of a run folder (MLflow puts the file in the folder given)
+            got = download(uri, run_id, "scores/test_scores.parquet", tmp / run_id / "scores")
             if got is None or not got.is_file():   # a run that exported no scores
                 return
-            if got != want:
-                got.replace(want)
             folders.append(str(tmp / run_id))
         rep.runs["folder"] = folders
         add_two_level(rep)

@@ -22,18 +22,24 @@ def embeddings(store: FeatureStore, videos: list[str]) -> np.ndarray:
     return np.stack([bag_embedding(store.views(v).mean(axis=0)) for v in videos])
 
 
-def baseline_scores(store: FeatureStore, c: float = 0.1, kernel: str = "linear") -> dict[str, float]:
-    """The baseline's score of each test video, fitted on every training video: a logistic
-    regression (``kernel="linear"``, C = ``c``) or an RBF SVM (``kernel="rbf"``, C = ``c``)."""
+def baseline_model(c: float = 0.1, kernel: str = "linear"):
+    """The unfitted classifier on bag embeddings: standardisation, then a logistic regression
+    (``kernel="linear"``, C = ``c``) or an RBF SVM (``kernel="rbf"``, C = ``c``)."""
     from sklearn.linear_model import LogisticRegression
     from sklearn.pipeline import make_pipeline
     from sklearn.preprocessing import StandardScaler
     from sklearn.svm import SVC
 
+    model = LogisticRegression(C=c, max_iter=5000) if kernel == "linear" else SVC(C=c, kernel="rbf")
+    return make_pipeline(StandardScaler(), model)
+
+
+def baseline_scores(store: FeatureStore, c: float = 0.1, kernel: str = "linear") -> dict[str, float]:
+    """The baseline's score of each test video, fitted on every training video
+    (:func:`baseline_model`)."""
     train, test = store.videos("train"), store.videos("test")
     y = np.array([store.label(v) for v in train])
-    model = (LogisticRegression(C=c, max_iter=5000) if kernel == "linear" else SVC(C=c, kernel="rbf"))
-    clf = make_pipeline(StandardScaler(), model).fit(embeddings(store, train), y)
+    clf = baseline_model(c, kernel).fit(embeddings(store, train), y)
     x = embeddings(store, test)
     s = clf.decision_function(x)
     return dict(zip(test, map(float, s)))

@@ -1,16 +1,11 @@
 """The study report's notebook table."""
 from __future__ import annotations
 
-import math
 from html import escape
 
 import pandas as pd
 
-from ..report.tables import Report
-
-
-def _fmt(x) -> str:
-    return "n/a" if x is None or (isinstance(x, float) and math.isnan(x)) else f"{x:.3f}"
+from ..report.tables import Report, _fmt
 
 
 def _html_table(t: pd.DataFrame, rep: Report, metric: str) -> str:

@@ -9,9 +9,9 @@ import numpy as np
 import pandas as pd
 
 from ..errors import WsadError
-from ..report.tables import Report, build_report, latex_table, markdown_table
+from ..report.tables import Report, _fmt, build_report, latex_table, markdown_table
 from ..report.two_level import add_two_level
-from .html import _fmt, _html_table
+from .html import _html_table
 
 
 class StudyReport:

@@ -39,8 +39,8 @@ def _warm() -> None:
 def execute(spec, out_dir: str, parent: str | None = None, settings: dict | None = None) -> dict:
     """Train one run (in a worker or in this process): ``{"ok", "error", "seconds", "run_id"}``.
     ``spec``: a :class:`~wsad.study.spec.RunSpec` (its config composed when the study was
-    planned, so a worker does not compose it again) or a list of overrides; ``settings``: keys
-    set on top (``{"trainer.threads": 1}``)."""
+    planned, so a worker does not compose it again); ``settings``: keys set on top
+    (``{"trainer.threads": 1}``)."""
     import warnings
 
     from ..errors import WsadError
@@ -70,15 +70,12 @@ def _config(spec, settings: dict):
     """The run's config with ``settings`` set, and the overrides that name the run."""
     from omegaconf import OmegaConf, open_dict
 
-    if isinstance(spec, (list, tuple)) or spec.config is None:
+    if spec.config is None:   # a spec made without composing (the study composes every one)
         from ..config import compose_config
-        from .spec import quote
 
-        overrides = list(spec if isinstance(spec, (list, tuple)) else spec.overrides)
-        cfg = compose_config([*overrides, *(f"{k}={quote(str(v).lower() if isinstance(v, bool) else str(v))}"
-                                            for k, v in settings.items())])
-        return cfg, overrides
-    cfg = spec.config.copy()
+        cfg = compose_config(list(spec.overrides))
+    else:
+        cfg = spec.config.copy()
     with open_dict(cfg):
         for key, value in settings.items():
             OmegaConf.update(cfg, key, value, merge=False)
