@@ -62,7 +62,7 @@ def _train(cwd: Path, *args: str) -> subprocess.CompletedProcess:
 
 def test_own_term_and_recipe_train_by_override(own_repo, small_store):
     search = f"hydra.searchpath=[file://{own_repo / 'lab_conf'}]"
-    common = [f"data.root={small_store}", search, "trainer.epochs=1", "trainer.progress=false",
+    common = [f"data.root={small_store}", "trainer.members=1", search, "trainer.epochs=1", "trainer.progress=false",
               "trainer.bootstrap=0", "tracking.enabled=false"]
     res = _train(own_repo, *common, "recipe=topk", "objective.top_gap=0.1", "hydra.run.dir=a")
     assert res.returncode == 0, res.stderr[-3000:]
@@ -76,7 +76,7 @@ def test_own_term_and_recipe_train_by_override(own_repo, small_store):
     res = _train(own_repo, *common, "objective.top_gapp=0.1")
     assert res.returncode == 2 and "top_gap" in res.stderr and "Traceback" not in res.stderr
     # and without the search path the term is unknown, in one line
-    res = _train(own_repo, f"data.root={small_store}", "objective.top_gap=0.1")
+    res = _train(own_repo, f"data.root={small_store}", "trainer.members=1", "objective.top_gap=0.1")
     assert res.returncode == 2 and "is not a term" in res.stderr
 
 
@@ -84,7 +84,7 @@ def test_own_term_joins_ablation_toggles(own_repo, small_store):
     from wsad.config import compose_config
     from wsad.train import apply_ablation
 
-    cfg = compose_config([f"data.root={small_store}", "recipe=windows", "ablation.toggle=top_gap",
+    cfg = compose_config([f"data.root={small_store}", "trainer.members=1", "recipe=windows", "ablation.toggle=top_gap",
                           f"hydra.searchpath=[file://{own_repo / 'lab_conf'}]"])
     apply_ablation(cfg)
     assert cfg.objective.top_gap == 0.3 and cfg.terms.top_gap.margin == 0.5

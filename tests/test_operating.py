@@ -26,7 +26,7 @@ def second_site(tmp_path_factory):
 def test_run_writes_det_points_equal_to_scikit_learn(small_store, tmp_path):
     from sklearn.metrics import det_curve  # reference: scikit-learn
 
-    r = train(compose_config([f"data.root={small_store}", f"trainer.out_dir={tmp_path}", *COMMON]))
+    r = train(compose_config([f"data.root={small_store}", "trainer.members=1", f"trainer.out_dir={tmp_path}", *COMMON]))
     frames = pd.read_csv(tmp_path / "scores" / "det_frames.csv")
     table = pd.read_parquet(tmp_path / "scores" / "test_scores.parquet")
     known = table[table.label >= 0]
@@ -56,7 +56,7 @@ def test_run_writes_det_points_equal_to_scikit_learn(small_store, tmp_path):
 
 
 def test_transfer_to_itself_repeats_the_run_and_to_a_second_site_differs(small_store, second_site, tmp_path):
-    r = train(compose_config([f"data.root={small_store}", f"trainer.out_dir={tmp_path}", *COMMON,
+    r = train(compose_config([f"data.root={small_store}", "trainer.members=1", f"trainer.out_dir={tmp_path}", *COMMON,
                               f"evaluate.stores=[{small_store},{second_site}]"]))
     name = small_store.resolve().name
     # the training store scored as a transfer store: the same model, standardiser and threshold
@@ -78,13 +78,13 @@ def test_transfer_to_itself_repeats_the_run_and_to_a_second_site_differs(small_s
 
 def test_transfer_store_of_another_dim_fails_before_training(small_store, tmp_path):
     wide = make_store(tmp_path / "wide", overrides=["dim=32"])
-    cfg = compose_config([f"data.root={small_store}", f"trainer.out_dir={tmp_path}/run", *COMMON,
+    cfg = compose_config([f"data.root={small_store}", "trainer.members=1", f"trainer.out_dir={tmp_path}/run", *COMMON,
                           f"evaluate.stores=[{wide}]"])
     with pytest.raises(WsadError, match="32-d features but the training store"):
         train(cfg)
     assert not (tmp_path / "run" / "scores").exists()          # no epoch was trained
     with pytest.raises(WsadError, match="is not a folder"):
-        train(compose_config([f"data.root={small_store}", *COMMON, f"evaluate.stores=[{tmp_path}/none]"]))
+        train(compose_config([f"data.root={small_store}", "trainer.members=1", *COMMON, f"evaluate.stores=[{tmp_path}/none]"]))
 
 
 def test_second_site_keeps_events_and_redraws_the_site(tmp_path):

@@ -27,7 +27,7 @@ def tracked(small_store, tmp_path_factory):
     """One run logged to a fresh SQLite store, with a transfer store (itself)."""
     work = tmp_path_factory.mktemp("tracked")
     uri = f"sqlite:///{work}/mlruns.db"
-    res = train(compose_config([f"data.root={small_store}", *COMMON, f"tracking.uri={uri}",
+    res = train(compose_config([f"data.root={small_store}", "trainer.members=1", *COMMON, f"tracking.uri={uri}",
                                 f"trainer.out_dir={work}/run", f"evaluate.stores=[{small_store}]"]))
     return res, uri
 
@@ -93,11 +93,11 @@ def test_settings_fingerprint_ignores_bookkeeping_only(small_store):
     from wsad.tracking.params import settings_fingerprint
 
     fp = store_fingerprint(small_store)
-    base = compose_config([f"data.root={small_store}", *COMMON])
-    same = compose_config([f"data.root={small_store}", *COMMON, "trainer.out_dir=/elsewhere", "data.cache_mb=64",
+    base = compose_config([f"data.root={small_store}", "trainer.members=1", *COMMON])
+    same = compose_config([f"data.root={small_store}", "trainer.members=1", *COMMON, "trainer.out_dir=/elsewhere", "data.cache_mb=64",
                            "trainer.progress=true", "tracking.experiment=other", "trainer.threads=1"])
-    other_seed = compose_config([f"data.root={small_store}", *COMMON, "seed=3"])
-    other_lr = compose_config([f"data.root={small_store}", *COMMON, "optim.lr=0.01"])
+    other_seed = compose_config([f"data.root={small_store}", "trainer.members=1", *COMMON, "seed=3"])
+    other_lr = compose_config([f"data.root={small_store}", "trainer.members=1", *COMMON, "optim.lr=0.01"])
     assert settings_fingerprint(base, fp) == settings_fingerprint(same, fp)
     assert len({settings_fingerprint(c, fp) for c in (base, other_seed, other_lr)}) == 3
     assert settings_fingerprint(base, fp) != settings_fingerprint(base, "another store")
@@ -105,9 +105,9 @@ def test_settings_fingerprint_ignores_bookkeeping_only(small_store):
 
 def test_two_runs_in_one_process_log_to_their_own_runs(small_store, tmp_path):
     uri = f"sqlite:///{tmp_path}/mlruns.db"
-    a = train(compose_config([f"data.root={small_store}", *COMMON, f"tracking.uri={uri}", "seed=0",
+    a = train(compose_config([f"data.root={small_store}", "trainer.members=1", *COMMON, f"tracking.uri={uri}", "seed=0",
                               f"trainer.out_dir={tmp_path}/a", "trainer.bootstrap=0"]))
-    b = train(compose_config([f"data.root={small_store}", *COMMON, f"tracking.uri={uri}", "seed=1",
+    b = train(compose_config([f"data.root={small_store}", "trainer.members=1", *COMMON, f"tracking.uri={uri}", "seed=1",
                               "recipe=windows", f"trainer.out_dir={tmp_path}/b", "trainer.bootstrap=0"]))
     client = mlflow.MlflowClient(uri)
     assert a.run_id != b.run_id

@@ -59,7 +59,7 @@ def test_pseudo_label_windows_carry_their_segments_labels(small_store):
 
 def test_a_term_needing_segment_labels_refuses_other_bags(small_store, tmp_path):
     with pytest.raises(WsadError, match="needs segment labels"):
-        build(compose_config([f"data.root={small_store}", "recipe=topk", "objective.pseudo_bce=1",
+        build(compose_config([f"data.root={small_store}", "trainer.members=1", "recipe=topk", "objective.pseudo_bce=1",
                               f"trainer.out_dir={tmp_path}"]))
 
 
@@ -70,7 +70,7 @@ def test_one_run_holds_both_stages_and_labels_come_from_training_videos(small_st
     tradeoff = evaluation.event_tradeoff
     monkeypatch.setattr(evaluation, "event_tradeoff", lambda *a, **k: det_made.append(1) or tradeoff(*a, **k))
     uri = f"sqlite:///{tmp_path}/mlruns.db"
-    cfg = compose_config([f"data.root={small_store}", "recipe=self_training", "trainer.epochs=3",
+    cfg = compose_config([f"data.root={small_store}", "trainer.members=1", "recipe=self_training", "trainer.epochs=3",
                           "self_training.stage2.epochs=2", "trainer.progress=false", "trainer.bootstrap=0",
                           f"tracking.uri={uri}", f"trainer.out_dir={tmp_path}/out"])
     first, second = stage_configs(cfg)
@@ -103,7 +103,7 @@ def _state(path):
 
 @pytest.mark.slow   # about 40 s; make test resumes a killed run in test_reliability (one stage)
 def test_stopped_in_stage_two_resumes_to_identical_scores(small_store, tmp_path):
-    common = [f"data.root={small_store}", "recipe=self_training", "trainer.epochs=2", "self_training.stage2.epochs=40",
+    common = [f"data.root={small_store}", "trainer.members=1", "recipe=self_training", "trainer.epochs=2", "self_training.stage2.epochs=40",
               "trainer.progress=false", "trainer.bootstrap=0", "seed=1"]
     ref = subprocess.run([sys.executable, "-c", CLI, *common, f"hydra.run.dir={tmp_path}/ref",
                           "tracking.experiment=ref"], cwd=tmp_path, capture_output=True, text=True, timeout=600)

@@ -67,7 +67,7 @@ def test_too_small_names_the_counts(small_store):
 
 def test_small_weak_validation_is_flagged_in_the_log_and_mlflow(small_store, tmp_path):
     uri = f"sqlite:///{tmp_path}/m.db"
-    cfg = compose_config([f"data.root={small_store}", "trainer.epochs=2", "trainer.progress=false",
+    cfg = compose_config([f"data.root={small_store}", "trainer.members=1", "trainer.epochs=2", "trainer.progress=false",
                           "trainer.bootstrap=0", f"tracking.uri={uri}", f"trainer.out_dir={tmp_path}/o"])
     with warnings.catch_warnings(record=True) as caught:
         warnings.simplefilter("always")
@@ -81,7 +81,7 @@ def test_small_weak_validation_is_flagged_in_the_log_and_mlflow(small_store, tmp
 
 
 def test_folds_choose_the_epochs_then_refit_on_all(small_store, tmp_path):
-    cfg = compose_config([f"data.root={small_store}", "trainer.epochs=6", "trainer.weak_val_folds=3",
+    cfg = compose_config([f"data.root={small_store}", "trainer.members=1", "trainer.epochs=6", "trainer.weak_val_folds=3",
                           "trainer.select_smooth=2", f"trainer.out_dir={tmp_path}/o", *QUIET])
     res = train(cfg)
     epochs = int(res.metrics["selection/epochs"])
@@ -99,13 +99,13 @@ def test_folds_choose_the_epochs_then_refit_on_all(small_store, tmp_path):
     ("trainer.weak_val_folds=0", "trainer.weak_val_folds=0"),
 ])
 def test_selection_settings_are_checked(small_store, tmp_path, override, message):
-    cfg = compose_config([f"data.root={small_store}", override, f"trainer.out_dir={tmp_path}", *QUIET])
+    cfg = compose_config([f"data.root={small_store}", "trainer.members=1", override, f"trainer.out_dir={tmp_path}", *QUIET])
     with pytest.raises(WsadError, match=message.replace("(", r"\(").replace(")", r"\)")):
         train(cfg)
 
 
 def test_refit_needs_weak_validation(small_store, tmp_path):
-    cfg = compose_config([f"data.root={small_store}", "trainer.refit=true", "trainer.select=last",
+    cfg = compose_config([f"data.root={small_store}", "trainer.members=1", "trainer.refit=true", "trainer.select=last",
                           f"trainer.out_dir={tmp_path}", *QUIET])
     with pytest.raises(WsadError, match="need trainer.select=weak_val"):
         train(cfg)
@@ -150,3 +150,39 @@ def test_elephant_five_fold_bag_accuracy_with_the_defaults(tmp_path):
         accs.append(acc)
     print(f"Elephant 5-fold bag accuracy {np.mean(accs):.3f} ({', '.join(f'{a:.3f}' for a in accs)})")
     assert np.mean(accs) >= 0.85, accs
+
+
+def test_members_average_the_scores_of_models_trained_alone(small_store, tmp_path):
+    """A two-member run's test scores are the mean of two one-model runs with the members'
+    seeds (0 and 0 + 1000), and its checkpoint scores the same again."""
+    common = [f"data.root={small_store}", "trainer.epochs=3", *QUIET]
+    both = train(compose_config([*common, "trainer.members=2", f"trainer.out_dir={tmp_path}/both"]))
+    alone = [train(compose_config([*common, "trainer.members=1", f"seed={seed}", f"trainer.out_dir={tmp_path}/{seed}"]))
+             for seed in (0, 1000)]
+    mean = (alone[0].scores.score.to_numpy(np.float64) + alone[1].scores.score.to_numpy(np.float64)) / 2
+    assert not np.allclose(alone[0].scores.score, alone[1].scores.score)   # two different models
+    np.testing.assert_allclose(both.scores.score.to_numpy(np.float64), mean, atol=1e-6)
+    from wsad.checkpoint import scorer_from_checkpoint
+
+    scorer, _, _ = scorer_from_checkpoint(tmp_path / "both" / "model" / "checkpoint.pt")
+    store = FeatureStore(small_store)
+    again = scorer(store, store.videos("test"))
+    first = both.scores.groupby("video", sort=False).score.first()
+    assert len(scorer.others) == 1
+    assert all(abs(float(again[v][0]) - first[v]) < 1e-6 for v in first.index)
+
+
+def test_small_collections_get_several_members_and_say_so(small_store, demo_store):
+    from wsad.train.members import SMALL_MEMBERS, SMALL_SEGMENTS, member_count
+
+    cfg = compose_config([f"data.root={small_store}"])
+    small = FeatureStore(small_store)
+    videos = small.videos("train")
+    segments = sum(small.n_segments(v) for v in videos)
+    count, said = member_count(cfg, small, videos)
+    assert segments < SMALL_SEGMENTS and count == SMALL_MEMBERS and f"{segments} training segments" in said
+    demo = FeatureStore(demo_store)
+    assert member_count(cfg, demo, demo.videos("train")) == (1, None)   # 10,000+ segments: one model
+    assert member_count(compose_config([f"data.root={small_store}", "trainer.members=3"]), small, videos) == (3, None)
+    with pytest.raises(WsadError, match="trainer.members=0"):
+        member_count(compose_config([f"data.root={small_store}", "trainer.members=0"]), small, videos)

@@ -42,7 +42,7 @@ def _integrity(db: Path) -> str:
 
 
 def test_eight_runs_four_workers_fresh_sqlite(small_store, tmp_path):
-    res = wsad_train(tmp_path, "-m", f"data.root={small_store}", "recipe=topk,windows",
+    res = wsad_train(tmp_path, "-m", f"data.root={small_store}", "trainer.members=1", "recipe=topk,windows",
                      "seed=0,1,2,3", *BASE, "hydra/launcher=joblib", "hydra.launcher.n_jobs=4")
     assert res.returncode == 0, res.stderr[-3000:]
     db = tmp_path / "mlruns.db"
@@ -153,7 +153,7 @@ def test_worker_waits_for_the_store_its_launcher_makes(tmp_path):
 
 
 def test_sweep_through_submitit_local(small_store, tmp_path):
-    res = wsad_train(tmp_path, "-m", f"data.root={small_store}", "recipe=topk", "seed=0,1", *BASE,
+    res = wsad_train(tmp_path, "-m", f"data.root={small_store}", "trainer.members=1", "recipe=topk", "seed=0,1", *BASE,
                      "hydra/launcher=submitit_local", "hydra.launcher.timeout_min=10",
                      "hydra.launcher.cpus_per_task=1")
     assert res.returncode == 0, res.stderr[-3000:]
@@ -199,7 +199,7 @@ def test_parallel_workers_log_to_a_real_server(small_store, tmp_path, mlflow_ser
     url, artifact_root = mlflow_server
     work = tmp_path / "work"
     work.mkdir()
-    res = wsad_train(work, "-m", f"data.root={small_store}", "recipe=topk", "seed=0,1", *BASE,
+    res = wsad_train(work, "-m", f"data.root={small_store}", "trainer.members=1", "recipe=topk", "seed=0,1", *BASE,
                      f"tracking.uri={url}", "tracking.experiment=served", "hydra/launcher=joblib",
                      "hydra.launcher.n_jobs=2")
     assert res.returncode == 0, res.stderr[-3000:]
@@ -231,18 +231,18 @@ def test_sweep_presets_compose():
 def test_ablation_toggle_switches_one_term(small_store):
     from wsad.train import apply_ablation
 
-    cfg = compose_config([f"data.root={small_store}", "recipe=windows", "ablation.toggle=smoothness"])
+    cfg = compose_config([f"data.root={small_store}", "trainer.members=1", "recipe=windows", "ablation.toggle=smoothness"])
     apply_ablation(cfg)
     assert cfg.objective.smoothness == 0.0 and cfg.objective.video_bce == 1.0
-    cfg = compose_config([f"data.root={small_store}", "recipe=windows", "ablation.toggle=cluster_distance"])
+    cfg = compose_config([f"data.root={small_store}", "trainer.members=1", "recipe=windows", "ablation.toggle=cluster_distance"])
     apply_ablation(cfg)
     assert cfg.objective.cluster_distance == 1e-3
-    cfg = compose_config([f"data.root={small_store}", "recipe=windows", "bags=windows_sequential"])
+    cfg = compose_config([f"data.root={small_store}", "trainer.members=1", "recipe=windows", "bags=windows_sequential"])
     assert cfg.bags.order == "sequential" and cfg.bags.size == 32
 
 
 def test_optuna_search_runs_on_weak_validation(small_store, tmp_path):
-    res = wsad_train(tmp_path, "-m", f"data.root={small_store}", "recipe=topk", "sweep=optuna",
+    res = wsad_train(tmp_path, "-m", f"data.root={small_store}", "trainer.members=1", "recipe=topk", "sweep=optuna",
                      "hydra.sweeper.n_trials=2", *BASE, "tracking.enabled=false")
     assert res.returncode == 0, res.stderr[-3000:]
     best = list((tmp_path / "multirun").glob("*/*/optimization_results.yaml"))

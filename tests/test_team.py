@@ -101,7 +101,7 @@ def test_sixteen_runs_four_at_a_time(team_server, small_store, tmp_path):
 
 
 def test_missing_or_wrong_credentials_are_one_line(team_server, small_store, tmp_path):
-    args = [f"data.root={small_store}", *BASE, "trainer.epochs=1", f"tracking.uri={team_server.uri}",
+    args = [f"data.root={small_store}", "trainer.members=1", *BASE, "trainer.epochs=1", f"tracking.uri={team_server.uri}",
             "tracking.experiment=refused"]
     for env, said in ((_env(None, None), "refused a request without credentials"),
                       (_env(USER, "not-the-password"), f"refused the password of user '{USER}'")):
@@ -135,7 +135,7 @@ def _wait_for_epochs(server, experiment: str, runs: int, step: int, proc, timeou
 @pytest.mark.slow   # about 90 s; the long outage below too (make test-slow)
 def test_a_short_outage_mid_sweep_loses_nothing(team_server, small_store, tmp_path):
     exp, epochs = "outage_short", 16
-    proc = wsad_train(tmp_path, "-m", f"data.root={small_store}", *BASE, f"trainer.epochs={epochs}",
+    proc = wsad_train(tmp_path, "-m", f"data.root={small_store}", "trainer.members=1", *BASE, f"trainer.epochs={epochs}",
                       "seed=0,1,2,3", f"tracking.uri={team_server.uri}", f"tracking.experiment={exp}",
                       "hydra/launcher=joblib", "hydra.launcher.n_jobs=2", env=_env(), wait=False)
     _wait_for_epochs(team_server, exp, 1, 2, proc)
@@ -156,7 +156,7 @@ def test_a_short_outage_mid_sweep_loses_nothing(team_server, small_store, tmp_pa
 @pytest.mark.slow   # about 70 s (three training processes and the client's retry budget)
 def test_a_long_outage_stops_the_run_cleanly_and_it_resumes(team_server, small_store, tmp_path):
     exp, epochs = "outage_long", 16
-    args = [f"data.root={small_store}", *BASE, f"trainer.epochs={epochs}", "seed=5",
+    args = [f"data.root={small_store}", "trainer.members=1", *BASE, f"trainer.epochs={epochs}", "seed=5",
             f"tracking.uri={team_server.uri}", f"tracking.experiment={exp}"]
     # a short retry budget (MLflow's documented variables) so the client gives up within seconds
     quick = {"MLFLOW_HTTP_REQUEST_MAX_RETRIES": "1", "MLFLOW_HTTP_REQUEST_BACKOFF_FACTOR": "1",
@@ -174,7 +174,7 @@ def test_a_long_outage_stops_the_run_cleanly_and_it_resumes(team_server, small_s
     assert (tmp_path / "cut" / "state" / "resume.pt").is_file()
     team_server.start()
     res = wsad_train(tmp_path, f"trainer.resume={run_id}", f"tracking.uri={team_server.uri}",
-                     f"data.root={small_store}", env=_env())
+                     f"data.root={small_store}", "trainer.members=1", env=_env())
     assert res.returncode == 0, res.stderr[-3000:]
     whole = wsad_train(tmp_path, *args, "tracking.experiment=outage_reference", f"hydra.run.dir={tmp_path}/ref",
                        env=_env())

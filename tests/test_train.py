@@ -76,7 +76,7 @@ def test_any_part_added_by_override(small_store, tmp_path):
                      "bags.order=sequential"], tracking=False)
     h = pd.read_csv(f"{res['out_dir']}/scores/history.csv")
     assert "term/cluster_distance" in h.columns and h["term/cluster_distance"].iloc[0] > 0
-    cfg = compose_config([f"data.root={small_store}", "recipe=mil_ranking", "head=temporal",
+    cfg = compose_config([f"data.root={small_store}", "trainer.members=1", "recipe=mil_ranking", "head=temporal",
                           "objective.bag_bce=0.5"])
     assert cfg.head._target_.endswith("TemporalConvHead") and cfg.bags.chunks == 32
     assert cfg.objective.ranking_hinge == 1.0 and cfg.objective.bag_bce == 0.5
@@ -112,7 +112,7 @@ def test_training_step_has_no_per_video_loop(small_store, tmp_path, recipe):
     """One step's torch calls do not grow with the number of bags in the batch."""
     from wsad.train import build, objective
 
-    s = build(compose_config([f"data.root={small_store}", f"recipe={recipe}", "tracking.enabled=false",
+    s = build(compose_config([f"data.root={small_store}", "trainer.members=1", f"recipe={recipe}", "tracking.enabled=false",
                               "objective.cluster_distance=1e-3", "terms.cluster_distance.n_iter=1",
                               f"trainer.out_dir={tmp_path}"]))
     items = s.items
@@ -140,7 +140,7 @@ def _cli(tmp_path, *args):
 
 
 def test_console_train_and_score(small_store, tmp_path):
-    res = _cli(tmp_path, "train", f"data.root={small_store}", "recipe=topk", "trainer.epochs=2",
+    res = _cli(tmp_path, "train", f"data.root={small_store}", "trainer.members=1", "recipe=topk", "trainer.epochs=2",
                f"hydra.run.dir={tmp_path}/run")
     assert res.returncode == 0, res.stderr[-2000:]
     assert (tmp_path / "mlruns.db").exists()
@@ -166,14 +166,14 @@ def test_console_train_and_score(small_store, tmp_path):
 
 
 def test_bad_training_config_is_one_clear_line(small_store, tmp_path):
-    res = _cli(tmp_path, "train", f"data.root={small_store}", "head=transformer")
+    res = _cli(tmp_path, "train", f"data.root={small_store}", "trainer.members=1", "head=transformer")
     assert res.returncode != 0 and "Traceback" not in res.stderr
     assert "gated_attention" in res.stderr  # lists the known heads
-    res = _cli(tmp_path, "train", f"data.root={small_store}", "objective.bag_bce=-1",
+    res = _cli(tmp_path, "train", f"data.root={small_store}", "trainer.members=1", "objective.bag_bce=-1",
                "tracking.enabled=false")
     assert res.returncode == 2 and "must be >= 0" in res.stderr and "Traceback" not in res.stderr
     with pytest.raises(WsadError, match="every objective weight is 0"):
-        train(compose_config([f"data.root={small_store}", "objective.bag_bce=0",
+        train(compose_config([f"data.root={small_store}", "trainer.members=1", "objective.bag_bce=0",
                               "tracking.enabled=false"]))
 
 
@@ -183,7 +183,7 @@ def test_step_is_the_update_the_loop_makes(small_store, tmp_path):
     from wsad.checkpoint import load_checkpoint
     from wsad.train import build, seed_everything, step
 
-    over = [f"data.root={small_store}", "recipe=windows", "tracking.enabled=false", "trainer.epochs=1",
+    over = [f"data.root={small_store}", "trainer.members=1", "recipe=windows", "tracking.enabled=false", "trainer.epochs=1",
             "trainer.progress=false", "trainer.bootstrap=0", "trainer.select=last", f"trainer.out_dir={tmp_path}"]
     train(compose_config(over))
     trained = load_checkpoint(tmp_path / "model" / "checkpoint.pt")["state_dict"]

@@ -28,9 +28,10 @@ def save_torch(path: str | Path, payload: dict) -> Path:
 
 
 def save_checkpoint(path: str | Path, scorer: Scorer, cfg: DictConfig, dim: int) -> Path:
-    """A scorer's state dict, standardiser and chunk count plus the config, loadable with
-    ``weights_only``."""
+    """A scorer's state dict (and its other members'), standardiser and chunk count plus the
+    config, loadable with ``weights_only``."""
     return save_torch(path, {"state_dict": scorer.model.state_dict(),
+                             "members": [m.state_dict() for m in scorer.others],
                              "config": OmegaConf.to_yaml(cfg, resolve=True),
                              "standardizer": scorer.std.state(), "dim": int(dim), "chunks": scorer.chunks})
 
@@ -64,4 +65,9 @@ def scorer_from_checkpoint(path: str | Path) -> tuple[Scorer, DictConfig, int]:
     ckpt = load_checkpoint(path)
     model, cfg, std = model_from_checkpoint(ckpt)
     chunks = ckpt["chunks"] if "chunks" in ckpt else cfg.bags.get("chunks")   # older checkpoints: the YAML's
-    return Scorer(model, std, chunks), cfg, int(ckpt["dim"])
+    others = []
+    for state in ckpt.get("members", []):   # the run's other models (trainer.members)
+        other = build_head(cfg, ckpt["dim"])
+        other.load_state_dict(state)
+        others.append(other.eval())
+    return Scorer(model, std, chunks, others), cfg, int(ckpt["dim"])

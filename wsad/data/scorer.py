@@ -1,7 +1,7 @@
 """A scorer: the one value that turns a store's videos into segment scores."""
 from __future__ import annotations
 
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 
 import numpy as np
 import torch
@@ -18,14 +18,22 @@ class Scorer:
     segments and the chunk count bags were resampled to (None: segments as they are). A video's
     views (crops, as the store opens them) are scored each and averaged.
 
+    ``others``: further models of the same run (:mod:`wsad.train.members`, same standardiser
+    and chunks); a video's segment scores are then the mean over all the models.
+
     Built from a training setup (:meth:`wsad.train.Setup.scorer`) or a checkpoint
     (:func:`wsad.checkpoint.scorer_from_checkpoint`)."""
 
     model: torch.nn.Module
     std: Standardizer
     chunks: int | None = None
+    others: list[torch.nn.Module] = field(default_factory=list)
 
     def __call__(self, store: FeatureStore, videos: list[str], cache: ArrayCache | None = None
                  ) -> dict[str, np.ndarray]:
         """``{video: segment scores [T]}`` in the order of ``videos`` (see :func:`.score_videos`)."""
-        return score_videos(self.model, store, videos, self.std, self.chunks, cache=cache)
+        out = score_videos(self.model, store, videos, self.std, self.chunks, cache=cache)
+        if not self.others:
+            return out
+        rest = [score_videos(m, store, videos, self.std, self.chunks, cache=cache) for m in self.others]
+        return {v: np.mean([s, *(r[v] for r in rest)], axis=0).astype(s.dtype) for v, s in out.items()}

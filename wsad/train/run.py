@@ -18,6 +18,7 @@ from ..publish import FolderSink, Outcome, Run, Sink, Sinks
 from ..store import FeatureStore, store_fingerprint
 from ..tracking import TrackingUnavailable
 from .loop import choose_epochs, fit
+from .members import resolve_members, train_members
 from .progress import Progress
 from .resume import TrainingInterrupted
 from .selection import chooses_epochs, refit_config, too_small
@@ -64,6 +65,7 @@ def train_one_stage(cfg: DictConfig, overrides: list[str] | None, state: dict | 
         cfg = refit_config(cfg, epochs)
         seed_everything(int(cfg.seed), cfg.trainer.threads)
     s = build(cfg)
+    several = resolve_members(cfg, s.store, s.fit_videos)
     if cfg.trainer.select == "weak_val":
         small = too_small(s.store, s.val_videos)
     prog = Progress.start(s) if state is None else Progress.restore(state, s)
@@ -73,11 +75,15 @@ def train_one_stage(cfg: DictConfig, overrides: list[str] | None, state: dict | 
     if small:
         warnings.warn(small, stacklevel=2)
         sinks.tag("wsad.weak_val_too_small", small)
+    if several:
+        warnings.warn(several, stacklevel=2)
+    sinks.tag("wsad.members", str(cfg.trainer.members))
     with closing(sinks, resume_path):
         if chosen:
             sinks.log_rows([(epoch, None, {"selection/mean_weak_val_video_auc": value})
                             for epoch, value in enumerate(curve, 1)])
         fit(cfg, s, prog, sinks, resume_path)
+        s.members = train_members(cfg, int(cfg.trainer.members))
         return conclude(cfg, s, prog, sinks, transfer, chosen=chosen)
 
 

@@ -62,6 +62,9 @@ def label_segments(scores: np.ndarray, video_label: int, threshold: float) -> np
 def train_two_stages(cfg: DictConfig, overrides, state: dict | None,
                      transfer: list[tuple[str, FeatureStore]], extra: list | None = None) -> RunResult:
     first, second = stage_configs(cfg)
+    if cfg.trainer.members not in ("auto", 1):
+        raise WsadError(f"trainer.members={cfg.trainer.members}: a two-stage run trains one model per stage "
+                        "(use trainer.members=1, or average seeds in a study)")
     s1 = build(first)
     resumed_stage = int(state.get("stage", 1)) if state is not None else 1
     prog1 = Progress.restore(state, s1) if resumed_stage == 1 and state is not None else Progress.start(s1)

@@ -5,7 +5,7 @@ import os
 import random
 import tempfile
 import warnings
-from dataclasses import dataclass
+from dataclasses import dataclass, field
 from pathlib import Path
 
 import numpy as np
@@ -135,12 +135,14 @@ class Setup:
     schedule: torch.optim.lr_scheduler.LRScheduler | None
     epochs: int
     out_dir: Path
+    members: list[torch.nn.Module] = field(default_factory=list)   # the run's other models (.members)
 
     def scorer(self, state: dict | None = None) -> Scorer:
-        """The model as a :class:`~wsad.data.scorer.Scorer` (holding ``state`` when given)."""
+        """The model as a :class:`~wsad.data.scorer.Scorer` (holding ``state`` when given),
+        with the run's other members once they are trained."""
         if state is not None:
             self.model.load_state_dict(state)
-        return Scorer(self.model, self.std, self.bags.chunks)
+        return Scorer(self.model, self.std, self.bags.chunks, list(self.members))
 
 
 def build(cfg: DictConfig) -> Setup:
