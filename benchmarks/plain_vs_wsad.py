@@ -73,7 +73,8 @@ def run(size: str) -> dict:
             walls["wsad_cluster"].append(timed(wsad_cmd(root, work, f"c{i}", True), work)[0])
     med = {k: statistics.median(v) for k, v in walls.items()}
     stages = {k: statistics.median(t[k] for t in lines if k in t) for k in (lines[0] if lines else {})}
-    return {"plain": {"ratio_topk": med["wsad"] / med["plain"], "ratio_cluster": med["wsad_cluster"] / med["plain_cluster"],
+    return {"plain": {"ratio_topk": med["wsad"] / med["plain"],
+                      "ratio_cluster": med["wsad_cluster"] / med["plain_cluster"],
                       "wall_s": med, "each_s": walls, "epochs": EPOCHS, "videos": 600 if size != "tiny" else None,
                       "wsad_timeline": stages}}
 

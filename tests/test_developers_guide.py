@@ -65,7 +65,8 @@ def test_metric_example_is_logged_and_matches_a_hand_computation(small_store, tm
     import json
 
     ledger = sys.modules["wsad.publish.ledger"].Ledger(tmp_path / "runs.csv")
-    cfg = compose_config([f"data.root={small_store}", "trainer.members=1", "recipe=topk", "trainer.epochs=2", "trainer.progress=false",
+    cfg = compose_config([f"data.root={small_store}", "trainer.members=1",
+                          "recipe=topk", "trainer.epochs=2", "trainer.progress=false",
                           "tracking.enabled=false", "trainer.bootstrap=0", f"trainer.out_dir={tmp_path}/run"])
     res = train(cfg, sinks=[ledger])
     frames = pd.read_parquet(tmp_path / "run" / "scores" / "test_scores.parquet")

@@ -84,7 +84,8 @@ def test_transfer_store_of_another_dim_fails_before_training(small_store, tmp_pa
         train(cfg)
     assert not (tmp_path / "run" / "scores").exists()          # no epoch was trained
     with pytest.raises(WsadError, match="is not a folder"):
-        train(compose_config([f"data.root={small_store}", "trainer.members=1", *COMMON, f"evaluate.stores=[{tmp_path}/none]"]))
+        train(compose_config([f"data.root={small_store}", "trainer.members=1",
+                              *COMMON, f"evaluate.stores=[{tmp_path}/none]"]))
 
 
 def test_second_site_keeps_events_and_redraws_the_site(tmp_path):

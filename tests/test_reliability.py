@@ -164,7 +164,8 @@ def _state_epoch(path: Path) -> int:
 def test_sigterm_after_epoch_two_then_resume_gives_identical_scores(small_store, tmp_path):
     # 24 epochs: the signal must land while epochs remain (with 6, a busy machine let the
     # last four end before it arrived, and the run finished normally)
-    common = [f"data.root={small_store}", "trainer.members=1", "recipe=topk", "trainer.epochs=24", "trainer.progress=false",
+    common = [f"data.root={small_store}", "trainer.members=1",
+              "recipe=topk", "trainer.epochs=24", "trainer.progress=false",
               "trainer.bootstrap=0", "seed=3"]
     ref = cli(tmp_path, "train", *common, f"hydra.run.dir={tmp_path}/ref", "tracking.experiment=ref")
     assert ref.returncode == 0, ref.stderr[-2000:]
@@ -207,7 +208,8 @@ def test_resume_of_unknown_or_finished_run_is_a_clear_error(small_store, tmp_pat
 def test_hard_kill_leaves_stores_readable_and_a_rerun_works(small_store, tmp_path, delay):
     fp = store_fingerprint(small_store)
     before = tree_hash(small_store)
-    common = [f"data.root={small_store}", "trainer.members=1", "recipe=topk", "trainer.epochs=4", "trainer.progress=false",
+    common = [f"data.root={small_store}", "trainer.members=1",
+              "recipe=topk", "trainer.epochs=4", "trainer.progress=false",
               "trainer.bootstrap=50", f"hydra.run.dir={tmp_path}/run"]
     proc = subprocess.Popen([sys.executable, "-c", CLI.format("train"), *common], cwd=tmp_path,
                             stdout=subprocess.DEVNULL, stderr=subprocess.DEVNULL)
@@ -296,7 +298,8 @@ def test_epoch_rows_not_yet_sent_when_a_run_dies_are_logged_on_resume(small_stor
 
     monkeypatch.setenv("MLFLOW_TRACKING_URI", "")   # MLflow sets it for child processes; undone after
     uri = f"sqlite:///{tmp_path}/mlruns.db"
-    common = [f"data.root={small_store}", "trainer.members=1", "recipe=topk", "trainer.epochs=5", "trainer.progress=false",
+    common = [f"data.root={small_store}", "trainer.members=1",
+              "recipe=topk", "trainer.epochs=5", "trainer.progress=false",
               "trainer.bootstrap=0", "seed=4", f"tracking.uri={uri}"]
     monkeypatch.setattr(loop, "LOG_EVERY_S", float("inf"))     # nothing sent before the last epoch
     evaluate = loop._evaluate_epoch

@@ -94,7 +94,8 @@ def test_settings_fingerprint_ignores_bookkeeping_only(small_store):
 
     fp = store_fingerprint(small_store)
     base = compose_config([f"data.root={small_store}", "trainer.members=1", *COMMON])
-    same = compose_config([f"data.root={small_store}", "trainer.members=1", *COMMON, "trainer.out_dir=/elsewhere", "data.cache_mb=64",
+    same = compose_config([f"data.root={small_store}", "trainer.members=1",
+                           *COMMON, "trainer.out_dir=/elsewhere", "data.cache_mb=64",
                            "trainer.progress=true", "tracking.experiment=other", "trainer.threads=1"])
     other_seed = compose_config([f"data.root={small_store}", "trainer.members=1", *COMMON, "seed=3"])
     other_lr = compose_config([f"data.root={small_store}", "trainer.members=1", *COMMON, "optim.lr=0.01"])

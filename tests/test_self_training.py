@@ -103,7 +103,8 @@ def _state(path):
 
 @pytest.mark.slow   # about 40 s; make test resumes a killed run in test_reliability (one stage)
 def test_stopped_in_stage_two_resumes_to_identical_scores(small_store, tmp_path):
-    common = [f"data.root={small_store}", "trainer.members=1", "recipe=self_training", "trainer.epochs=2", "self_training.stage2.epochs=40",
+    common = [f"data.root={small_store}", "trainer.members=1",
+              "recipe=self_training", "trainer.epochs=2", "self_training.stage2.epochs=40",
               "trainer.progress=false", "trainer.bootstrap=0", "seed=1"]
     ref = subprocess.run([sys.executable, "-c", CLI, *common, f"hydra.run.dir={tmp_path}/ref",
                           "tracking.experiment=ref"], cwd=tmp_path, capture_output=True, text=True, timeout=600)

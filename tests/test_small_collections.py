@@ -81,7 +81,8 @@ def test_small_weak_validation_is_flagged_in_the_log_and_mlflow(small_store, tmp
 
 
 def test_folds_choose_the_epochs_then_refit_on_all(small_store, tmp_path):
-    cfg = compose_config([f"data.root={small_store}", "trainer.members=1", "trainer.epochs=6", "trainer.weak_val_folds=3",
+    cfg = compose_config([f"data.root={small_store}", "trainer.members=1",
+                          "trainer.epochs=6", "trainer.weak_val_folds=3",
                           "trainer.select_smooth=2", f"trainer.out_dir={tmp_path}/o", *QUIET])
     res = train(cfg)
     epochs = int(res.metrics["selection/epochs"])
@@ -99,7 +100,8 @@ def test_folds_choose_the_epochs_then_refit_on_all(small_store, tmp_path):
     ("trainer.weak_val_folds=0", "trainer.weak_val_folds=0"),
 ])
 def test_selection_settings_are_checked(small_store, tmp_path, override, message):
-    cfg = compose_config([f"data.root={small_store}", "trainer.members=1", override, f"trainer.out_dir={tmp_path}", *QUIET])
+    cfg = compose_config([f"data.root={small_store}", "trainer.members=1",
+                          override, f"trainer.out_dir={tmp_path}", *QUIET])
     with pytest.raises(WsadError, match=message.replace("(", r"\(").replace(")", r"\)")):
         train(cfg)
 

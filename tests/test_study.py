@@ -179,8 +179,8 @@ def test_operating_point_explorer_recomputes_as_the_budget_moves(study):
 
 def test_study_file_through_the_command_and_a_local_scheduler(small_store, tmp_path, monkeypatch, capsys):
     study_file = tmp_path / "bays.yaml"
-    study_file.write_text(f"stores: [{small_store}]\nbase: {{recipe: topk, trainer.epochs: 1, trainer.bootstrap: 0, trainer.members: 1,"
-                          f" tracking.enabled: false}}\nvariants: {{head: [mlp]}}\nseeds: 2\n"
+    study_file.write_text(f"stores: [{small_store}]\nbase: {{recipe: topk, trainer.epochs: 1, trainer.bootstrap: 0,"
+                          f" trainer.members: 1, tracking.enabled: false}}\nvariants: {{head: [mlp]}}\nseeds: 2\n"
                           "launcher: {name: local, timeout_min: 10}\n")
     code = "import sys; from wsad.cli.study import main; sys.argv=['wsad-study']+sys.argv[1:]; main()"
     res = subprocess.run([sys.executable, "-c", code, str(study_file)], capture_output=True, text=True,

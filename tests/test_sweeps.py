@@ -231,10 +231,12 @@ def test_sweep_presets_compose():
 def test_ablation_toggle_switches_one_term(small_store):
     from wsad.train import apply_ablation
 
-    cfg = compose_config([f"data.root={small_store}", "trainer.members=1", "recipe=windows", "ablation.toggle=smoothness"])
+    cfg = compose_config([f"data.root={small_store}", "trainer.members=1",
+                          "recipe=windows", "ablation.toggle=smoothness"])
     apply_ablation(cfg)
     assert cfg.objective.smoothness == 0.0 and cfg.objective.video_bce == 1.0
-    cfg = compose_config([f"data.root={small_store}", "trainer.members=1", "recipe=windows", "ablation.toggle=cluster_distance"])
+    cfg = compose_config([f"data.root={small_store}", "trainer.members=1",
+                          "recipe=windows", "ablation.toggle=cluster_distance"])
     apply_ablation(cfg)
     assert cfg.objective.cluster_distance == 1e-3
     cfg = compose_config([f"data.root={small_store}", "trainer.members=1", "recipe=windows", "bags=windows_sequential"])

@@ -101,7 +101,8 @@ def test_sixteen_runs_four_at_a_time(team_server, small_store, tmp_path):
 
 
 def test_missing_or_wrong_credentials_are_one_line(team_server, small_store, tmp_path):
-    args = [f"data.root={small_store}", "trainer.members=1", *BASE, "trainer.epochs=1", f"tracking.uri={team_server.uri}",
+    args = [f"data.root={small_store}", "trainer.members=1",
+            *BASE, "trainer.epochs=1", f"tracking.uri={team_server.uri}",
             "tracking.experiment=refused"]
     for env, said in ((_env(None, None), "refused a request without credentials"),
                       (_env(USER, "not-the-password"), f"refused the password of user '{USER}'")):
@@ -135,7 +136,8 @@ def _wait_for_epochs(server, experiment: str, runs: int, step: int, proc, timeou
 @pytest.mark.slow   # about 90 s; the long outage below too (make test-slow)
 def test_a_short_outage_mid_sweep_loses_nothing(team_server, small_store, tmp_path):
     exp, epochs = "outage_short", 16
-    proc = wsad_train(tmp_path, "-m", f"data.root={small_store}", "trainer.members=1", *BASE, f"trainer.epochs={epochs}",
+    proc = wsad_train(tmp_path, "-m", f"data.root={small_store}", "trainer.members=1",
+                                      *BASE, f"trainer.epochs={epochs}",
                       "seed=0,1,2,3", f"tracking.uri={team_server.uri}", f"tracking.experiment={exp}",
                       "hydra/launcher=joblib", "hydra.launcher.n_jobs=2", env=_env(), wait=False)
     _wait_for_epochs(team_server, exp, 1, 2, proc)

@@ -112,7 +112,8 @@ def test_training_step_has_no_per_video_loop(small_store, tmp_path, recipe):
     """One step's torch calls do not grow with the number of bags in the batch."""
     from wsad.train import build, objective
 
-    s = build(compose_config([f"data.root={small_store}", "trainer.members=1", f"recipe={recipe}", "tracking.enabled=false",
+    s = build(compose_config([f"data.root={small_store}", "trainer.members=1",
+                              f"recipe={recipe}", "tracking.enabled=false",
                               "objective.cluster_distance=1e-3", "terms.cluster_distance.n_iter=1",
                               f"trainer.out_dir={tmp_path}"]))
     items = s.items
@@ -183,7 +184,8 @@ def test_step_is_the_update_the_loop_makes(small_store, tmp_path):
     from wsad.checkpoint import load_checkpoint
     from wsad.train import build, seed_everything, step
 
-    over = [f"data.root={small_store}", "trainer.members=1", "recipe=windows", "tracking.enabled=false", "trainer.epochs=1",
+    over = [f"data.root={small_store}", "trainer.members=1",
+            "recipe=windows", "tracking.enabled=false", "trainer.epochs=1",
             "trainer.progress=false", "trainer.bootstrap=0", "trainer.select=last", f"trainer.out_dir={tmp_path}"]
     train(compose_config(over))
     trained = load_checkpoint(tmp_path / "model" / "checkpoint.pt")["state_dict"]
