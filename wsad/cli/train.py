@@ -22,8 +22,10 @@ PROG = "wsad-train"
 def _app(cfg: DictConfig) -> float:
     from hydra.core.hydra_config import HydraConfig
 
+    from ..timeline import line, mark
     from ..train import train
 
+    mark("config")
     if cfg.tracking.get("enabled", True):
         from ..tracking.client import load
 
@@ -33,6 +35,9 @@ def _app(cfg: DictConfig) -> float:
     res = guarded(lambda: train(cfg, overrides), PROG)
     print(end_of_run(res, cfg))
     _freeze_survivors()
+    mark("end")
+    if line():
+        print(line())
     return res.objective
 
 
@@ -118,6 +123,9 @@ the full configuration: wsad-train data.root=STORE --cfg job   (Hydra's own help
 
 
 def main() -> None:
+    from ..timeline import mark
+
+    mark("imports")
     os.environ.setdefault("WSAD_LAUNCH_DIR", os.getcwd())
     if any(a in ("-h", "--help") for a in sys.argv[1:]):
         print(help_page(registry.search_dirs(sys.argv[1:])))

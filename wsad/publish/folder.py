@@ -15,6 +15,7 @@ from ..evaluate import Evaluation
 from ..evaluate.catalogue import CATALOGUE
 from ..evaluate.det import DET_EVENTS, DET_FRAMES
 from ..files import atomic_path
+from ..timeline import mark
 from ..tracking.params import settings_fingerprint
 from .base import Outcome, Sink
 
@@ -56,7 +57,9 @@ def write_evaluation(out: Path, ev: Evaluation, name: str, plots: bool) -> None:
     if ev.transfer:
         write_table(ev.transfer_table(), out / TRANSFER)
     if plots:
+        mark("files")
         draw_plots(out, ev, name)
+        mark("plots")
 
 
 def write_summary(out: Path, metrics: dict, ev: Evaluation, **about) -> Path:

@@ -6,6 +6,8 @@ turns the scores into an :class:`~wsad.evaluate.Evaluation`, and the sinks publi
 """
 from __future__ import annotations
 
+import importlib
+import threading
 import warnings
 from contextlib import contextmanager
 from contextvars import ContextVar
@@ -16,6 +18,7 @@ from omegaconf import DictConfig
 from ..evaluate import Evaluation, EvaluationSettings, evaluate, scored
 from ..publish import FolderSink, Outcome, Run, Sink, Sinks
 from ..store import FeatureStore, store_fingerprint
+from ..timeline import mark
 from ..tracking import TrackingUnavailable
 from .loop import choose_epochs, fit
 from .members import resolve_members, train_members
@@ -65,6 +68,7 @@ def train_one_stage(cfg: DictConfig, overrides: list[str] | None, state: dict | 
         cfg = refit_config(cfg, epochs)
         seed_everything(int(cfg.seed), cfg.trainer.threads)
     s = build(cfg)
+    mark("build")
     several = resolve_members(cfg, s.store, s.fit_videos)
     if cfg.trainer.select == "weak_val":
         small = too_small(s.store, s.val_videos)
@@ -78,13 +82,23 @@ def train_one_stage(cfg: DictConfig, overrides: list[str] | None, state: dict | 
     if several:
         warnings.warn(several, stacklevel=2)
     sinks.tag("wsad.members", str(cfg.trainer.members))
+    mark("tracking")
     with closing(sinks, resume_path):
         if chosen:
             sinks.log_rows([(epoch, None, {"selection/mean_weak_val_video_auc": value})
                             for epoch, value in enumerate(curve, 1)])
+        if draws_plots(cfg):
+            prefetch("wsad.evaluate.plots")   # matplotlib loads while the epochs run
         fit(cfg, s, prog, sinks, resume_path)
+        mark("epochs")
         s.members = train_members(cfg, int(cfg.trainer.members))
         return conclude(cfg, s, prog, sinks, transfer, chosen=chosen)
+
+
+def prefetch(module: str) -> None:
+    """Import ``module`` in a background thread (Python's import lock makes a later import of
+    it in the main thread wait for this one, never run it twice)."""
+    threading.Thread(target=importlib.import_module, args=(module,), daemon=True).start()
 
 
 @contextmanager
@@ -126,12 +140,15 @@ def conclude(cfg: DictConfig, s: Setup, prog: Progress, sinks: Sinks, transfer: 
     """Score, evaluate and publish the selected model; close the run. ``chosen``: what an
     epoch-count choice before a refit measured (logged with the rest)."""
     ev = score_and_evaluate(cfg, s, prog, transfer)
+    mark("evaluate")
     final = {**ev.metrics, **selection_metrics(prog), **(chosen or {})}
     said = run_warnings(ev.warnings)
     outcome = Outcome(str(cfg.get("recipe_name", "model")), saved_cfg or cfg, ev, final, prog.history, s.out_dir,
                       s.epochs, s.scorer(), s.store.dim, store_fingerprint(s.store.root), draws_plots(cfg), said)
     sinks.publish(outcome)
+    mark("publish")
     sinks.close("FINISHED")
+    mark("close")
     objective = float(final.get("weak_val_video_auc", -prog.history[-1]["train_loss"]))
     return Run(s.out_dir, final, list(prog.history), sinks.run_id, objective, ev, said)
 
