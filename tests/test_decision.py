@@ -44,9 +44,8 @@ def _permuted_copy(src, dst, seed=0):
 
 def test_no_test_label_chooses_the_threshold(small_store, tmp_path):
     common = ["recipe=topk", "trainer.epochs=3", "trainer.progress=false", "tracking.enabled=false",
-              "trainer.bootstrap=0"]
-    a = train(compose_config([f"data.root={small_store}", "trainer.members=1",
-                              f"trainer.out_dir={tmp_path}/a", *common]))
+              "trainer.bootstrap=0", "trainer.members=1"]
+    a = train(compose_config([f"data.root={small_store}", f"trainer.out_dir={tmp_path}/a", *common]))
     perm = _permuted_copy(small_store, tmp_path / "perm")
     b = train(compose_config([f"data.root={perm}", f"trainer.out_dir={tmp_path}/b", *common]))
     assert a.metrics["video_threshold"] == b.metrics["video_threshold"]

@@ -76,7 +76,7 @@ CASES = {"topk": ("topk", []), "windows": ("windows", []), "mil_ranking": ("mil_
 @pytest.mark.parametrize("case", list(CASES))
 def test_every_recipe_and_head_finds_held_out_digit_runs(digit_store, tmp_path, case):
     recipe, extra = CASES[case]
-    cfg = compose_config([f"data.root={digit_store}", f"recipe={recipe}", "trainer.progress=false",
+    cfg = compose_config([f"data.root={digit_store}", "trainer.members=1", f"recipe={recipe}", "trainer.progress=false",
                           "tracking.enabled=false", "trainer.bootstrap=0", f"trainer.out_dir={tmp_path}/out", *extra])
     train(cfg)
     table = pd.read_parquet(tmp_path / "out" / "scores" / "test_scores.parquet")

@@ -250,7 +250,7 @@ def test_folder_to_a_checked_store_that_trains(tmp_path):
     from wsad.config import compose_config
     from wsad.train import train
 
-    r = train(compose_config([f"data.root={tmp_path / 'store'}", "recipe=topk", "trainer.epochs=2",
+    r = train(compose_config([f"data.root={tmp_path / 'store'}", "trainer.members=1", "recipe=topk", "trainer.epochs=2",
                               "trainer.progress=false", "tracking.enabled=false", "trainer.bootstrap=0",
                               "trainer.select=last", "trainer.weak_val_share=0", f"trainer.out_dir={tmp_path}/run"]))
     # random weights: the features mean nothing, so no learning is asked for; what is checked is

@@ -120,9 +120,9 @@ def _train(store, tmp_path, recipe, *extra):
     from wsad.config import compose_config
     from wsad.train import train
 
-    return train(compose_config([f"data.root={store}", f"recipe={recipe}", "seed=0", "tracking.enabled=false",
-                                 "trainer.progress=false", "trainer.bootstrap=200", f"trainer.out_dir={tmp_path}",
-                                 *extra]))
+    return train(compose_config([f"data.root={store}", "trainer.members=1", f"recipe={recipe}", "seed=0",
+                                 "tracking.enabled=false", "trainer.progress=false", "trainer.bootstrap=200",
+                                 f"trainer.out_dir={tmp_path}", *extra]))
 
 
 @pytest.mark.slow   # about 12 s on the invented scenario; make test checks the recipe learning on the digits stream

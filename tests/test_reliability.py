@@ -118,7 +118,7 @@ def test_train_refuses_a_broken_store_in_one_line(small_store, tmp_path):
     a[0, 0] = np.nan
     np.save(root / m.file[0], a)
     before = tree_hash(root)
-    res = cli(tmp_path, "train", f"data.root={root}", "tracking.enabled=false")
+    res = cli(tmp_path, "train", f"data.root={root}", "trainer.members=1", "tracking.enabled=false")
     assert res.returncode == 2 and "Traceback" not in res.stderr
     lines = [ln for ln in res.stderr.splitlines() if ln.strip()]
     assert len(lines) == 1 and m.video[0] in lines[0] and "wsad-check" in lines[0]

@@ -65,7 +65,8 @@ def _runs(server, experiment: str) -> list:
 def _sweep_through_submitit(server, store, tmp_path, runs: int, concurrent: int) -> None:
     exp = f"team_sweep_{runs}"
     seeds = ",".join(str(i) for i in range(runs))
-    res = wsad_train(tmp_path, "-m", f"data.root={store}", *BASE, "trainer.epochs=1", f"seed={seeds}",
+    res = wsad_train(tmp_path, "-m", f"data.root={store}", "trainer.members=1", *BASE, "trainer.epochs=1",
+                     f"seed={seeds}",
                      "trainer.plots=true",   # a sweep leaves plots to wsad-report unless asked; asked here
                      f"tracking.uri={server.uri}", f"tracking.experiment={exp}",
                      "hydra/launcher=submitit_local", "hydra.launcher.timeout_min=20",

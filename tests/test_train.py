@@ -24,7 +24,7 @@ BUDGET = {"topk": ["trainer.epochs=4"], "windows": ["trainer.epochs=3"],
 
 def run(store, tmp_path, recipe, extra=(), tracking=True):
     uri = f"sqlite:///{tmp_path}/mlruns.db"
-    cfg = compose_config([f"data.root={store}", f"recipe={recipe}", "trainer.progress=false",
+    cfg = compose_config([f"data.root={store}", "trainer.members=1", f"recipe={recipe}", "trainer.progress=false",
                           f"trainer.out_dir={tmp_path}/out_{recipe}", f"tracking.uri={uri}",
                           f"tracking.enabled={str(tracking).lower()}", "trainer.bootstrap=200",
                           *BUDGET.get(recipe, []), *extra])
@@ -91,7 +91,8 @@ def test_each_crop_as_its_own_bag(tmp_path):
 
     st = make_store(tmp_path / "mc", overrides=["crops=3"])
     _, res, _ = run(st, tmp_path, "topk", ["trainer.epochs=1", "data.crops=each"], tracking=False)
-    cfg = compose_config([f"data.root={st}", "recipe=topk", "data.crops=each", "tracking.enabled=false",
+    cfg = compose_config([f"data.root={st}", "trainer.members=1", "recipe=topk", "data.crops=each",
+                          "tracking.enabled=false",
                           f"trainer.out_dir={tmp_path}/b"])
     s = build(cfg)
     assert len(s.items) == 3 * len(s.fit_videos) and {it.view for it in s.items} == {0, 1, 2}
