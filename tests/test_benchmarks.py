@@ -49,6 +49,11 @@ def test_every_benchmark_runs_at_tiny_size(tmp_path):
     assert 0 < sw["import_floor_s"] and sw["efficiency_bound"] <= 1
     assert len(result["run"]["warm_each_s"]) == 2 and result["run"]["overhead_s"]["warm"] > 0
     assert result["run"]["overhead_s"]["cold"] > 0
+    pl = result["plain"]   # the whole-process ratio beside the plain script, and wsad's own timeline
+    assert pl["ratio_topk"] == pl["wall_s"]["wsad"] / pl["wall_s"]["plain"] > 0
+    marks = list(pl["wsad_timeline"].values())
+    assert {"imports", "build", "epochs", "evaluate", "end"} <= set(pl["wsad_timeline"]) and marks == sorted(marks)
+    assert pl["wsad_timeline"]["end"] < pl["wall_s"]["wsad"]
     st = result["study"]   # the warm study's six runs, each with its epoch compute recorded
     assert st["runs"] == 6 and 0 < st["compute_s"] and 0 < st["efficiency_warm"] <= 1
     assert st["efficiency_warm"] == st["compute_s"] / 2 / st["wall_s"]
