@@ -82,7 +82,42 @@ def table(rows: list[dict], result: dict) -> str:
     for name, v in result["train"]["recipes"].items():
         lines.append(f"| {name} | {v['epoch_s']:.2f} | {v['floor_s']:.2f} | {v['ratio_to_floor']:.2f} "
                      f"| {v['cold_ratio_to_floor']:.2f} | {v['segments']:,} |")
+    if "research" in result:
+        lines += ["", research_table(result["research"])]
+    if "plain" in result:
+        lines += ["", plain_table(result["plain"])]
     return "\n".join(lines)
+
+
+def research_table(r: dict) -> str:
+    """What an ablation costs at research scale (the docs' table)."""
+    s = r["study"]
+    return "\n".join([
+        f"What an ablation costs at research scale ({r['views']} views, {r['store_gb']:.1f} GB store, "
+        f"{r['test_frames']:,} test frames):", "",
+        "| measure | value |", "|---|---:|",
+        f"| one topk epoch (warm), s | {r['epoch_s']:.1f} |",
+        f"| its ratio to the matrix-product floor | {r['ratio_to_floor']:.2f} |",
+        f"| peak anonymous memory, GB (store memory-mapped) | {r['peak_anon_rss_gb']:.2f} |",
+        f"| scoring + evaluation with intervals, s per million test frames | {r['eval_s_per_million_frames']:.2f} |",
+        f"| study of 3 variants x 3 seeds, {s['epochs']} epochs each, 2 workers: wall, min | {s['wall_s'] / 60:.1f} |",
+        f"| its efficiency (epoch compute / 2 / wall) | {s['efficiency']:.2f} |",
+        f"| its overhead per run beyond the epochs, s | {s['overhead_s_per_run']:.1f} |"])
+
+
+def plain_table(p: dict) -> str:
+    """A whole wsad-train process beside the plain script, and where wsad's time goes."""
+    w = p["wall_s"]
+    marks = p["wsad_timeline"]
+    stages, before = [], 0.0
+    for name, at in marks.items():
+        stages.append(f"{name} {at - before:.1f}")
+        before = at
+    return "\n".join([
+        f"{p['epochs']}-epoch runs, whole processes, wall s: plain script {w['plain']:.1f}, wsad-train "
+        f"{w['wsad']:.1f} (ratio {p['ratio_topk']:.2f}); with the cluster term {w['plain_cluster']:.1f} vs "
+        f"{w['wsad_cluster']:.1f} (ratio {p['ratio_cluster']:.2f}). wsad-train's own timeline, s per stage: "
+        + ", ".join(stages) + "."])
 
 
 def main() -> int:

@@ -179,12 +179,10 @@ def test_small_collections_get_several_members_and_say_so(small_store, demo_stor
 
     cfg = compose_config([f"data.root={small_store}"])
     small = FeatureStore(small_store)
-    videos = small.videos("train")
-    segments = sum(small.n_segments(v) for v in videos)
-    count, said = member_count(cfg, small, videos)
+    segments = sum(small.n_segments(v) for v in small.videos("train"))   # the whole training split
+    count, said = member_count(cfg, small)
     assert segments < SMALL_SEGMENTS and count == SMALL_MEMBERS and f"{segments} training segments" in said
-    demo = FeatureStore(demo_store)
-    assert member_count(cfg, demo, demo.videos("train")) == (1, None)   # 10,000+ segments: one model
-    assert member_count(compose_config([f"data.root={small_store}", "trainer.members=3"]), small, videos) == (3, None)
+    assert member_count(cfg, FeatureStore(demo_store)) == (1, None)   # 10,000+ segments: one model
+    assert member_count(compose_config([f"data.root={small_store}", "trainer.members=3"]), small) == (3, None)
     with pytest.raises(WsadError, match="trainer.members=0"):
-        member_count(compose_config([f"data.root={small_store}", "trainer.members=0"]), small, videos)
+        member_count(compose_config([f"data.root={small_store}", "trainer.members=0"]), small)

@@ -58,7 +58,7 @@ def test_eight_runs_four_workers_fresh_sqlite(small_store, tmp_path):
     assert {d.dataset.digest for r in trials for d in r.inputs.dataset_inputs} == {store_fingerprint(small_store)}
     names = {r.info.run_name for r in trials}
     # readable names: recipe, the overrides that changed something, seed (not data.root)
-    assert "windows trainer.epochs=1 trainer.bootstrap=0 seed=3" in names
+    assert "windows trainer.members=1 trainer.epochs=1 trainer.bootstrap=0 seed=3" in names
     assert len(names) == 8
     # trainer.plots=auto: a sweep's runs export their scores and leave the plots to the report
     scored = list(tmp_path.glob("multirun/*/*/*/scores/test_scores.parquet"))

@@ -36,7 +36,7 @@ class TrainerSettings:
     min_epoch: int = _f(1, "no epoch before this one is selected")
     refit: bool = _f(False, "after selecting an epoch count, retrain on all train videos for that many")
     members: Any = _f("auto", "models trained with seeds seed, seed + 1000, ... whose segment scores are averaged; "
-                      "auto: 5 on a small collection (< 5,000 training segments), else 1 (wsad.train.members)")
+                      "auto: 5 on a small collection (< 4,000 training segments), else 1 (wsad.train.members)")
     grad_clip: Optional[float] = _f(None, "clip the gradient norm to this (null: no clipping)")
     threads: Optional[int] = _f(None, "torch threads; null = all cores, or 1 per job in a sweep", bookkeeping=True)
     bootstrap: int = _f(1000, "cluster resamples for the final intervals (0 skips intervals)")

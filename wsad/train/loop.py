@@ -29,11 +29,12 @@ from .step import step
 LOG_EVERY_S = 2.0
 
 
-def fit(cfg: DictConfig, s: Setup, prog: Progress, sinks: Sink, resume_path: Path, prefix: str = "",
+def fit(cfg: DictConfig, s: Setup, prog: Progress, sinks: Sink, resume_path: Path | None, prefix: str = "",
         saved: tuple[DictConfig, dict] | None = None) -> None:
     """The epochs from ``prog.epoch`` on: train, evaluate, keep the selected model, log
     (metric names under ``prefix``; sent every :data:`LOG_EVERY_S`), save the resume state
-    after every epoch. ``saved``: the config and extra fields the resume state records
+    after every epoch (not when ``resume_path`` is None: a fold's or a member's training is
+    redone, not resumed). ``saved``: the config and extra fields the resume state records
     (default: ``cfg``)."""
     saved_cfg, extra = saved or (cfg, {})
     saved_yaml = OmegaConf.to_yaml(saved_cfg, resolve=True)   # what every resume state records
@@ -51,7 +52,8 @@ def fit(cfg: DictConfig, s: Setup, prog: Progress, sinks: Sink, resume_path: Pat
                 row.update(_evaluate_epoch(cfg, s, epoch))
                 row["time/eval_s"] = time.perf_counter() - started
                 prog.record(epoch, row, s, cfg.trainer)
-                save_torch(resume_path, {**prog.snapshot(saved_yaml, s), **extra})  # before any row is sent
+                if resume_path is not None:   # before any row is sent
+                    save_torch(resume_path, {**prog.snapshot(saved_yaml, s), **extra})
                 pending.append(_logged_row(prog.history[-1], prefix))
                 if epoch == s.epochs or time.monotonic() - sent >= LOG_EVERY_S:
                     sinks.log_rows(pending)
@@ -73,7 +75,7 @@ def _logged_row(row: dict, prefix: str) -> tuple[int, int, dict]:
     return row["epoch"], int(time.time() * 1000), values
 
 
-def _train_epoch(cfg, s: Setup, prog: Progress, epoch: int, stop: GracefulStop, resume_path: Path,
+def _train_epoch(cfg, s: Setup, prog: Progress, epoch: int, stop: GracefulStop, resume_path: Path | None,
                  sinks: Sink, saved_yaml: str, extra: dict) -> dict:
     """One pass over the epoch's batches (from ``prog.batch`` after a stop mid-epoch)."""
     s.model.train()
@@ -85,7 +87,8 @@ def _train_epoch(cfg, s: Setup, prog: Progress, epoch: int, stop: GracefulStop, 
         res = step(s.model, s.pooling, s.terms, batch, s.optimizer, cfg.trainer.grad_clip)
         prog.add_step(res.loss, res.terms)
         if stop.requested:  # the step is done: save where we are, then stop
-            save_torch(resume_path, {**prog.snapshot(saved_yaml, s, epoch, bi + 1), **extra})
+            if resume_path is not None:
+                save_torch(resume_path, {**prog.snapshot(saved_yaml, s, epoch, bi + 1), **extra})
             raise TrainingInterrupted(
                 f"stopped by signal {stop.signum} in epoch {epoch} after batch {bi + 1}; "
                 f"resume with trainer.resume={sinks.run_id or '<run id>'}", stop.signum)
@@ -126,12 +129,12 @@ def choose_epochs(cfg: DictConfig) -> tuple[int, float, list[float], str | None]
             sub.trainer.weak_val_fold = fold
             sub.trainer.eval_every = 10 ** 9  # test metrics are not needed to choose
             sub.trainer.progress = False
-            sub.trainer.out_dir = tempfile.mkdtemp(prefix="wsad-fold-")
+            sub.trainer.out_dir = tempfile.gettempdir()   # nothing is written: no resume state, no files
         seed_everything(int(cfg.seed), cfg.trainer.threads)
         s = build(sub)
         small = small or too_small(s.store, s.val_videos)
         prog = Progress.start(s)
-        fit(sub, s, prog, Sinks(), Path(sub.trainer.out_dir) / "resume.pt", prefix=f"fold {fold + 1}/{folds} ")
+        fit(sub, s, prog, Sinks(), None, prefix=f"fold {fold + 1}/{folds} ")
         curves.append([r["weak_val_video_auc"] for r in prog.history])
     mean = list(np.mean(np.array(curves), axis=0))
     epochs, value = pick_epoch(mean, int(cfg.trainer.select_smooth), int(cfg.trainer.min_epoch))

@@ -69,7 +69,7 @@ def train_one_stage(cfg: DictConfig, overrides: list[str] | None, state: dict | 
         seed_everything(int(cfg.seed), cfg.trainer.threads)
     s = build(cfg)
     mark("build")
-    several = resolve_members(cfg, s.store, s.fit_videos)
+    several = resolve_members(cfg, s.store)
     if cfg.trainer.select == "weak_val":
         small = too_small(s.store, s.val_videos)
     prog = Progress.start(s) if state is None else Progress.restore(state, s)
