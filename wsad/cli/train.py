@@ -26,11 +26,9 @@ def _app(cfg: DictConfig) -> float:
     from ..train import train
 
     mark("config")
-    if cfg.tracking.get("enabled", True):
-        from ..tracking.client import load
-
-        load()  # MLflow imported before the freeze below, like torch
-    gc.freeze()   # what the imports made (no collection first: it would walk them all)
+    # what the imports made (no collection first: it would walk them all); MLflow is imported
+    # later, beside the training (wsad.publish.tracked), and frozen with the run's survivors
+    gc.freeze()
     overrides = list(HydraConfig.get().overrides.task)
     res = guarded(lambda: train(cfg, overrides), PROG)
     print(end_of_run(res, cfg))

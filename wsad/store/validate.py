@@ -68,7 +68,7 @@ def _read_manifest(root: Path, out: list[Problem]) -> pd.DataFrame | None:
                            "video,file,label,split,group,frames (one row per video)"))
         return None
     try:
-        man = pd.read_csv(path, dtype=str, keep_default_na=False)
+        man = pd.read_csv(path, dtype=str, keep_default_na=False, index_col=False)  # a row with extra commas: no index
     except (OSError, UnicodeDecodeError, ValueError, pd.errors.ParserError) as err:
         out.append(Problem("-", f"manifest.csv cannot be parsed as CSV ({str(err).splitlines()[0]})"))
         return None
@@ -100,7 +100,7 @@ def _check_rows(man: pd.DataFrame, out: list[Problem]) -> dict[str, dict]:
     dup = man["video"][man["video"].duplicated()].unique()
     for v in dup:
         out.append(Problem(v, "appears more than once in manifest.csv; video ids must be unique"))
-    for i, r in man.iterrows():
+    for i, (_, r) in enumerate(man.iterrows()):
         v = r["video"].strip()
         if v == "":
             out.append(Problem("-", f"manifest.csv row {i + 2} has an empty video id"))
@@ -186,7 +186,7 @@ def _check_events(root: Path, rows: dict[str, dict], known: set[str],
     if not path.is_file():
         return set()
     try:
-        ev = pd.read_csv(path, dtype=str, keep_default_na=False)
+        ev = pd.read_csv(path, dtype=str, keep_default_na=False, index_col=False)
     except (OSError, UnicodeDecodeError, ValueError, pd.errors.ParserError) as err:
         out.append(Problem("-", f"events.csv cannot be parsed as CSV ({str(err).splitlines()[0]})"))
         return set()
@@ -196,7 +196,7 @@ def _check_events(root: Path, rows: dict[str, dict], known: set[str],
         return set()
     with_events: set[str] = set()
     spans: dict[str, list[tuple[int, int]]] = {}
-    for i, r in ev.iterrows():
+    for i, (_, r) in enumerate(ev.iterrows()):
         v = r["video"].strip()
         if v not in known:
             out.append(Problem(v or "-", f"events.csv row {i + 2} names a video not in manifest.csv"))

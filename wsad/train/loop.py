@@ -38,7 +38,7 @@ def fit(cfg: DictConfig, s: Setup, prog: Progress, sinks: Sink, resume_path: Pat
     (default: ``cfg``)."""
     saved_cfg, extra = saved or (cfg, {})
     saved_yaml = OmegaConf.to_yaml(saved_cfg, resolve=True)   # what every resume state records
-    if sinks.run_id and prog.history:   # resumed: the epochs the state holds that the run lacks
+    if prog.history and sinks.run_id:   # resumed: the epochs the state holds that the run lacks
         logged = sinks.logged_steps(prefix + "train_loss")
         sinks.log_rows([_logged_row(r, prefix) for r in prog.history if r["epoch"] not in logged])
     pending, sent = [], time.monotonic()

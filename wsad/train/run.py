@@ -111,6 +111,9 @@ def closing(sinks: Sinks, resume_path: Path):
         sinks.close("KILLED", resume_path)
         raise
     except TrackingUnavailable as err:  # nothing more can be logged: say how to finish
+        if sinks.run_id is None:   # the run's start in MLflow itself failed (it runs beside the training)
+            raise TrackingUnavailable(f"{err}; the run could not start there; when the server is back, "
+                                      "start it again") from None
         saved = (f"with its training state saved in {resume_path}; when the server is back, finish it "
                  f"with trainer.resume={sinks.run_id}") if resume_path.is_file() else (
                  "before its first epoch ended; when the server is back, start it again")
