@@ -32,8 +32,4 @@ class Scorer:
     def __call__(self, store: FeatureStore, videos: list[str], cache: ArrayCache | None = None
                  ) -> dict[str, np.ndarray]:
         """``{video: segment scores [T]}`` in the order of ``videos`` (see :func:`.score_videos`)."""
-        out = score_videos(self.model, store, videos, self.std, self.chunks, cache=cache)
-        if not self.others:
-            return out
-        rest = [score_videos(m, store, videos, self.std, self.chunks, cache=cache) for m in self.others]
-        return {v: np.mean([s, *(r[v] for r in rest)], axis=0).astype(s.dtype) for v, s in out.items()}
+        return score_videos(self.model, store, videos, self.std, self.chunks, cache=cache, others=self.others)

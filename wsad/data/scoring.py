@@ -1,6 +1,8 @@
 """Segment scores of whole videos, in packed batches of bounded size."""
 from __future__ import annotations
 
+from collections.abc import Sequence
+
 import numpy as np
 import torch
 
@@ -15,8 +17,11 @@ MAX_SEGMENTS = 16384
 @torch.no_grad()
 def score_videos(model: torch.nn.Module, store: FeatureStore, videos: list[str],
                  std: Standardizer, chunks: int | None, max_segments: int = MAX_SEGMENTS,
-                 cache: ArrayCache | None = None) -> dict[str, np.ndarray]:
-    """Segment scores per video (mean over views), in eval mode.
+                 cache: ArrayCache | None = None, others: Sequence[torch.nn.Module] = ()
+                 ) -> dict[str, np.ndarray]:
+    """Segment scores per video (mean over views), in eval mode. With ``others`` (further
+    models of one run, :mod:`wsad.train.members`), the mean over all the models, each video
+    read and prepared once for them all.
 
     Videos are read lazily and scored in packed batches of up to
     ``max_segments`` real segments (no padding is computed), so memory stays
@@ -27,8 +32,10 @@ def score_videos(model: torch.nn.Module, store: FeatureStore, videos: list[str],
     Returns:
         ``{video: scores [T]}`` in the order of ``videos``.
     """
-    was_training = model.training
-    model.eval()
+    models = [model, *others]
+    was_training = [m.training for m in models]
+    for m in models:
+        m.eval()
     out: dict[str, np.ndarray] = {}
 
     def prepare(v: str) -> np.ndarray:
@@ -46,7 +53,10 @@ def score_videos(model: torch.nn.Module, store: FeatureStore, videos: list[str],
         lengths = np.array([a.shape[1] for _, a in group for _ in range(len(a))])
         x = np.concatenate([a.reshape(-1, store.dim) for _, a in group])
         mask = np.arange(lengths.max())[None, :] < lengths[:, None]
-        s = model(torch.from_numpy(x), torch.from_numpy(mask)).scores.numpy()
+        x, mask = torch.from_numpy(x), torch.from_numpy(mask)
+        s = model(x, mask).scores.numpy()
+        if others:
+            s = np.mean([s, *(m(x, mask).scores.numpy() for m in others)], axis=0).astype(s.dtype)
         r = 0
         for v, a in group:
             sc = s[r:r + len(a), :a.shape[1]].mean(axis=0)
@@ -64,5 +74,6 @@ def score_videos(model: torch.nn.Module, store: FeatureStore, videos: list[str],
         rows += a.size // store.dim
     if group:
         flush(group)
-    model.train(was_training)
+    for m, mode in zip(models, was_training):
+        m.train(mode)
     return {v: out[v] for v in videos}
