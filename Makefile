@@ -25,10 +25,13 @@ $(STAMP): pyproject.toml
 
 # Lint and import order first (ruff, configured in pyproject.toml), then the suite.
 lint: setup
-	$(BIN)/ruff check wsad tests benchmarks scripts
+	$(BIN)/ruff check wsad hydra_plugins tests benchmarks scripts
 
+# The suite on TEST_WORKERS processes (pytest-xdist; each file's tests stay on one process, so a
+# module's expensive fixture is built once). TEST_WORKERS=0 runs it in this process.
+TEST_WORKERS ?= 2
 test: lint
-	$(BIN)/python -m pytest -q tests
+	$(BIN)/python -m pytest -q tests -n $(TEST_WORKERS) --dist loadfile
 
 # The notebooks at their default settings (minutes each; not part of `make test`).
 test-slow: setup

@@ -28,7 +28,7 @@ sweep() {  # name, then wsad-train overrides
     return
   fi
   $BIN/wsad-train -m data.root="$OUT/store" seed=0,1,2 trainer.progress=false \
-    hydra/launcher=joblib hydra.launcher.n_jobs="$JOBS" tracking.uri="$URI" \
+    hydra/launcher=workers hydra.launcher.n_jobs="$JOBS" tracking.uri="$URI" \
     tracking.experiment="$name" hydra.sweep.dir="$OUT/runs_$name" "$@" > "$OUT/$name.log" 2>&1 \
     || { echo "sweep failed; see $OUT/$name.log"; tail -5 "$OUT/$name.log"; exit 1; }
   grep -c "^  run folder" "$OUT/$name.log" | xargs -I{} echo "   {} runs finished (log: $OUT/$name.log)"

@@ -20,7 +20,8 @@ def test_package_list_matches_the_folders():
     # pyproject lists the packages (two of them mapped from the top-level conf/ and synthetic/);
     # a new folder of wsad/ that is not listed would be missing from the wheel.
     listed = set(tomllib.loads((REPO / "pyproject.toml").read_text())["tool"]["setuptools"]["packages"])
-    found = {".".join(p.parent.relative_to(REPO).parts) for p in (REPO / "wsad").rglob("__init__.py")}
+    found = {".".join(p.parent.relative_to(REPO).parts) for top in ("wsad", "hydra_plugins")
+             for p in (REPO / top).rglob("__init__.py")}
     assert listed == found | {"wsad.conf", "wsad.scenarios"}
 
 
@@ -33,7 +34,7 @@ def installed(tmp_path_factory) -> Path:
     src.mkdir()
     for name in ("pyproject.toml", "README.md"):
         shutil.copy(REPO / name, src / name)
-    for name in ("wsad", "conf", "synthetic"):
+    for name in ("wsad", "conf", "synthetic", "hydra_plugins"):
         shutil.copytree(REPO / name, src / name, ignore=shutil.ignore_patterns("__pycache__"))
     build = subprocess.run([sys.executable, "-m", "build", "--wheel", "--outdir", str(tmp / "dist"), str(src)],
                            capture_output=True, text=True, timeout=600)

@@ -41,10 +41,35 @@ def _integrity(db: Path) -> str:
         con.close()
 
 
+def test_workers_launcher_default_matches_its_early_start():
+    from omegaconf import OmegaConf
+
+    from wsad.resources import CONF_DIR
+    from wsad.sweep import DEFAULT_JOBS, workers_wanted
+
+    assert OmegaConf.load(Path(CONF_DIR) / "hydra" / "launcher" / "workers.yaml").n_jobs == DEFAULT_JOBS
+    assert workers_wanted(["-m", "hydra/launcher=workers"]) == DEFAULT_JOBS
+    assert workers_wanted(["-m", "hydra/launcher=workers", "hydra.launcher.n_jobs=3"]) == 3
+    assert workers_wanted(["hydra/launcher=workers"]) == 0 and workers_wanted(["-m", "hydra/launcher=joblib"]) == 0
+
+
 def test_eight_runs_four_workers_fresh_sqlite(small_store, tmp_path):
+    """wsad's own launcher (hydra/launcher=workers: forked from one process that imported
+    torch and MLflow) on a fresh SQLite store; a trial's scores are those of the same run
+    trained in this process (bit for bit)."""
     res = wsad_train(tmp_path, "-m", f"data.root={small_store}", "trainer.members=1", "recipe=topk,windows",
-                     "seed=0,1,2,3", *BASE, "hydra/launcher=joblib", "hydra.launcher.n_jobs=4")
+                     "seed=0,1,2,3", *BASE, "hydra/launcher=workers", "hydra.launcher.n_jobs=4")
     assert res.returncode == 0, res.stderr[-3000:]
+    assert res.stdout.count("  run folder ") == 8
+    from wsad.train import train
+    alone = train(compose_config([f"data.root={small_store}", "trainer.members=1", "recipe=windows", "seed=3",
+                                  *BASE, "tracking.enabled=false", f"trainer.out_dir={tmp_path / 'alone'}"]))
+    (folder,) = [f for f in tmp_path.glob("multirun/*/*/*/.hydra/overrides.yaml")
+                 if {"recipe=windows", "seed=3"} <= set(__import__("yaml").safe_load(f.read_text()))]
+    import pandas as pd
+    pd.testing.assert_frame_equal(pd.read_parquet(folder.parents[1] / "scores" / "test_scores.parquet"),
+                                  alone.scores.reset_index(drop=True), check_like=True, check_dtype=False,
+                                  check_exact=True)
     db = tmp_path / "mlruns.db"
     assert [s for (s,) in _runs(db)] == ["FINISHED"] * 9   # 8 trials and the sweep's parent run
     assert _integrity(db) == "ok"

@@ -1,15 +1,103 @@
 """Hydra hooks for sweeps: the tracking store is made once, as workers start, and the sweep is
-one parent run in MLflow whose trials are its child runs."""
+one parent run in MLflow whose trials are its child runs; and the trials of
+``hydra/launcher=workers`` (:mod:`hydra_plugins.wsad_workers.launcher`).
+
+Why a launcher of our own: with joblib's, every worker starts after Hydra has composed the
+sweep and then imports torch, torch's compiler stack, MLflow and pandas (seconds each), and
+every trial composes its config again and unpickles Hydra's whole config store. Here
+``wsad-train -m ... hydra/launcher=workers`` starts its workers first thing (:func:`start_workers`),
+so their imports overlap the launcher's own start; the launcher composes each trial once and
+a worker takes the next one as it frees up. The measurement is in benchmarks/sweep.py."""
 from __future__ import annotations
 
 import gc
 import os
+import pickle
 import threading
 from pathlib import Path
 from typing import Any
 
 from hydra.experimental.callback import Callback
 from omegaconf import DictConfig
+
+#: ``hydra.launcher.n_jobs`` of conf/hydra/launcher/workers.yaml (tested equal)
+DEFAULT_JOBS = 2
+
+
+def workers_wanted(argv: list[str]) -> int:
+    """How many workers ``wsad-train argv`` will run its sweep on with our launcher (0: none)."""
+    if not any(a in ("-m", "--multirun") for a in argv) or "hydra/launcher=workers" not in argv:
+        return 0
+    jobs = [a.split("=", 1)[1] for a in argv if a.startswith("hydra.launcher.n_jobs=")]
+    return int(jobs[-1]) if jobs and jobs[-1].isdigit() and int(jobs[-1]) > 0 else DEFAULT_JOBS
+
+
+def start_workers(argv: list[str]) -> None:
+    """Start the sweep's workers before Hydra composes it (their imports take seconds), and
+    make the launcher known to Hydra: its scan of the ``hydra_plugins`` namespace does not see
+    packages of an editable install (``Plugins.register`` is Hydra's way for that)."""
+    jobs = workers_wanted(argv)
+    if jobs:
+        from hydra.core.plugins import Plugins
+
+        from hydra_plugins.wsad_workers.launcher import WorkersLauncher
+
+        from . import workers
+
+        workers.warm(jobs)
+        Plugins.instance().register(WorkersLauncher)
+
+
+def run_trials(jobs: int, configs, hydra_context, task_function) -> list:
+    """Every trial (its composed config, submitted as it comes) on ``jobs`` workers, the next one to the first that
+    frees up; Hydra's job returns in order. A trial that fails does not stop the others (its
+    error is raised once all have ended); Ctrl-C stops them all (each keeps its resume state)."""
+    from concurrent.futures import wait
+
+    import cloudpickle  # Hydra's state holds OmegaConf's resolvers, local functions
+    from hydra.core.singleton import Singleton
+
+    from . import workers
+
+    task = (task_function.__module__, task_function.__qualname__)
+    shared = cloudpickle.dumps((hydra_context, task, Singleton.get_state()))
+    futures = [workers.call(jobs, run_trial, cfg, shared, dict(os.environ)) for cfg in configs]
+    try:
+        wait(futures)
+    except BaseException:
+        workers.terminate(jobs)
+        raise
+    return [pickle.loads(f.result()) for f in futures]
+
+
+def run_trial(cfg: DictConfig, shared: bytes, env: dict):
+    """One trial in a worker, as Hydra's own launchers run one: its output folder, its logging,
+    the job callbacks, the task function. ``shared``: Hydra's context, the task (module and
+    name; the undecorated function behind ``hydra.main``) and Hydra's global state, pickled.
+    The launcher's environment is the trial's (the sweep's parent run is announced there after
+    the worker started)."""
+    import importlib
+
+    import cloudpickle
+    from hydra.core.singleton import Singleton
+    from hydra.core.utils import run_job, setup_globals
+
+    hydra_context, task, state = pickle.loads(shared)
+
+    fn = getattr(importlib.import_module(task[0]), task[1])
+    fn = getattr(fn, "__wrapped__", fn)
+    setup_globals()
+    Singleton.set_state(state)
+    saved = dict(os.environ)
+    os.environ.clear()
+    os.environ.update(env)
+    try:
+        ret = run_job(hydra_context=hydra_context, task_function=fn, config=cfg,
+                      job_dir_key="hydra.sweep.dir", job_subdir_key="hydra.sweep.subdir")
+        return cloudpickle.dumps(ret)   # its configs hold classes Hydra's plugin scan made twice
+    finally:
+        os.environ.clear()
+        os.environ.update(saved)
 
 
 class PrepareTracking(Callback):

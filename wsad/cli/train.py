@@ -110,7 +110,7 @@ recipes (recipe=NAME):
 examples:
   wsad-train data.root=warehouse_store recipe=topk seed=0
   wsad-train data.root=warehouse_store recipe=windows trainer.epochs=15 objective.cluster_distance=0.1
-  wsad-train -m data.root=warehouse_store recipe=windows sweep=terms seed=0,1,2 hydra/launcher=joblib
+  wsad-train -m data.root=warehouse_store recipe=windows sweep=terms seed=0,1,2 hydra/launcher=workers
 
 settings are Hydra overrides, key=value: groups (recipe=, bags=, head=, pooling=, optim=, schedule=),
 objective.TERM=WEIGHT (0 disables a term), trainer.*, data.*, evaluate.*, tracking.*. -m runs a
@@ -135,4 +135,7 @@ def main() -> None:
         check_arguments(sys.argv[1:], dirs)
 
     guarded(prepare, PROG)
+    from ..sweep import start_workers
+
+    start_workers(sys.argv[1:])   # hydra/launcher=workers: their imports overlap Hydra's start
     _app()

@@ -20,9 +20,10 @@ class TrackingSink(Sink):
     The start runs in a background thread while the run builds and trains its first epoch:
     importing MLflow, opening (or creating) its store and making the run cost seconds that a
     short run would otherwise wait for. Tags are sent in order behind the start; epoch rows,
-    the outcome and the status wait for it. A start that failed (a server away, refused
-    credentials) raises its own error at the first of those, once, with the run's resume state
-    already on disk; ``run_id`` is then None."""
+    the outcome and the status wait for it; epoch rows made while it is still on its way are
+    queued behind it. A start that failed (a server away, refused credentials) raises its own
+    error at the next of those, once, with the run's resume state already on disk; ``run_id``
+    is then None."""
 
     def __init__(self, cfg: DictConfig, overrides: list[str] | None, store_root: str, fingerprint: str,
                  resume_id: str | None = None):
@@ -68,6 +69,12 @@ class TrackingSink(Sink):
         self._queued.append(self._pool.submit(lambda: self.run and self.run.set_tag(key, value)))
 
     def log_rows(self, rows: list[Row]) -> None:
+        if self._queued and not self._queued[0].done():
+            # the start is still on its way (a sweep's launcher making the store or the parent
+            # run): the rows go behind it, the epochs go on; a failed start drops them and is
+            # raised at the next call, and a resume sends every row not logged
+            self._queued.append(self._pool.submit(lambda: self.run and self.run.log_rows(rows)))
+            return
         self._ready().log_rows(rows)
 
     def logged_steps(self, key: str) -> set[int]:

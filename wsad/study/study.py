@@ -105,7 +105,7 @@ class Study:
         scheduler jobs through submitit (``"slurm"``, ``"local"``, or a dict with ``name`` and
         submitit's parameters, e.g. ``slurm_partition``, ``timeout_min``). A failing run becomes a
         row with its error; the others finish. Returns :meth:`runs`."""
-        from .workers import execute, submit
+        from ..workers import execute, submit
 
         todo = [s for s in self.specs if self.status(s) != "done"]
         if not todo:
@@ -139,7 +139,7 @@ class Study:
         """The runs as submitit jobs (one array), yielding (spec, result) as they end."""
         import submitit
 
-        from .workers import execute
+        from ..workers import execute
 
         opts = {"name": launcher} if isinstance(launcher, str) else dict(launcher)
         cluster = str(opts.pop("name", "slurm"))
