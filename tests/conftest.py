@@ -56,3 +56,15 @@ class CountTorchCalls(torch.overrides.TorchFunctionMode):
     def __torch_function__(self, func, types, args=(), kwargs=None):
         self.calls += 1
         return func(*args, **(kwargs or {}))
+
+
+#: The files whose tests take longest (measured: `pytest --durations`), first. With two processes
+#: (make test: pytest-xdist, a file per process) a long file started last would leave the other
+#: process idle at the end; longest first is the classic greedy order for that (Graham 1969).
+LONGEST_FIRST = ("test_notebooks.py", "test_reliability.py", "test_extract.py", "test_sweeps.py",
+                 "test_open_collections.py", "test_team.py", "test_study.py", "test_packaging.py")
+
+
+def pytest_collection_modifyitems(items):
+    rank = {name: i for i, name in enumerate(LONGEST_FIRST)}
+    items.sort(key=lambda item: rank.get(item.path.name, len(rank)))   # stable: the rest keep their order
