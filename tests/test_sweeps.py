@@ -274,3 +274,31 @@ def test_optuna_search_runs_on_weak_validation(small_store, tmp_path):
     assert res.returncode == 0, res.stderr[-3000:]
     best = list((tmp_path / "multirun").glob("*/*/optimization_results.yaml"))
     assert best and "best_value" in best[0].read_text()
+
+
+def test_ctrl_c_stops_a_workers_sweep_with_each_trial_resumable(small_store, tmp_path):
+    """Ctrl-C reaches the whole process group; the launcher alone decides: its running trials
+    stop after their step with their resume state (one line each), queued ones never start,
+    and no worker is left behind."""
+    import signal
+
+    code = "import sys; from wsad.cli.train import main; sys.argv=['wsad-train']+sys.argv[1:]; main()"
+    proc = subprocess.Popen([sys.executable, "-c", code, "-m", f"data.root={small_store}", "trainer.members=1",
+                             "recipe=topk", "seed=0,1,2,3", "trainer.epochs=500", "trainer.progress=false",
+                             "trainer.bootstrap=0", "hydra/launcher=workers", "hydra.launcher.n_jobs=2",
+                             f"hydra.sweep.dir={tmp_path}/sweep"], cwd=tmp_path, stdout=subprocess.PIPE,
+                            stderr=subprocess.STDOUT, text=True, start_new_session=True)
+    deadline = time.monotonic() + 300
+    while len(list(tmp_path.glob("sweep/*/state/resume.pt"))) < 2 and time.monotonic() < deadline:
+        time.sleep(0.2)    # both workers are in their trials' epochs
+    os.killpg(proc.pid, signal.SIGINT)
+    out, _ = proc.communicate(timeout=300)
+    assert proc.returncode == 130, out[-3000:]
+    assert out.count("resume with trainer.resume=") == 2 and "sweep stopped by signal 2" in out, out[-3000:]
+    assert sorted(p.name for p in (tmp_path / "sweep").iterdir() if p.is_dir()) == ["0", "1"]
+    deadline = time.monotonic() + 30   # the fork server and resource tracker end as their pipes close
+    while (alive := subprocess.run(["pgrep", "-g", str(proc.pid)], capture_output=True, text=True).stdout.split()) \
+            and time.monotonic() < deadline:
+        time.sleep(0.2)
+    assert alive == [], subprocess.run(["ps", "-o", "pid,cmd", "-g", str(proc.pid)], capture_output=True,
+                                       text=True).stdout

@@ -13,6 +13,9 @@ from __future__ import annotations
 import gc
 import os
 import pickle
+import signal
+import sys
+import tempfile
 import threading
 from pathlib import Path
 from typing import Any
@@ -20,6 +23,8 @@ from typing import Any
 from hydra.experimental.callback import Callback
 from omegaconf import DictConfig
 
+#: where a stopped sweep tells its queued trials not to start
+STOP_FILE = "WSAD_SWEEP_STOP"
 #: ``hydra.launcher.n_jobs`` of conf/hydra/launcher/workers.yaml (tested equal)
 DEFAULT_JOBS = 2
 
@@ -61,12 +66,30 @@ def run_trials(jobs: int, configs, hydra_context, task_function) -> list:
 
     task = (task_function.__module__, task_function.__qualname__)
     shared = cloudpickle.dumps((hydra_context, task, Singleton.get_state()))
-    futures = [workers.call(jobs, run_trial, cfg, shared, dict(os.environ)) for cfg in configs]
+    stop = Path(tempfile.gettempdir()) / f"wsad-sweep-stop.{os.getpid()}"
+    env = {**os.environ, STOP_FILE: str(stop)}
+    asked: list[int] = []
+    previous = {sig: signal.signal(sig, lambda signum, _: asked.append(signum))
+                for sig in (signal.SIGINT, signal.SIGTERM)}
     try:
-        wait(futures)
-    except BaseException:
-        workers.terminate(jobs)
-        raise
+        futures = []
+        for cfg in configs:
+            if asked:
+                break
+            futures.append(workers.call(jobs, run_trial, cfg, shared, env))
+        pending = set(futures)
+        while pending and not asked:
+            _, pending = wait(pending, timeout=0.2)
+        if asked:   # the workers ignore Ctrl-C: stop them here, each running trial keeping its state
+            stop.touch()
+            workers.terminate(jobs)
+            print(f"wsad-train: sweep stopped by signal {asked[0]}; each stopped trial printed how to "
+                  "resume it (trainer.resume=RUN_ID)", file=sys.stderr)
+            sys.exit(128 + asked[0])
+    finally:
+        for sig, handler in previous.items():
+            signal.signal(sig, handler)
+        stop.unlink(missing_ok=True)
     return [pickle.loads(f.result()) for f in futures]
 
 
@@ -82,6 +105,8 @@ def run_trial(cfg: DictConfig, shared: bytes, env: dict):
     from hydra.core.singleton import Singleton
     from hydra.core.utils import run_job, setup_globals
 
+    if Path(env.get(STOP_FILE, "")).is_file():
+        return None   # the sweep was stopped while this trial waited
     hydra_context, task, state = pickle.loads(shared)
 
     fn = getattr(importlib.import_module(task[0]), task[1])

@@ -133,13 +133,17 @@ def call(jobs: int, fn, *args) -> Future:
 
 
 def terminate(jobs: int) -> None:
-    """Stop the pool's workers now (SIGTERM: a run saves its resume state and stops)."""
+    """Stop the pool: what has not started is cancelled, each running run gets one SIGTERM (it
+    saves its resume state and stops), and this waits for them."""
     p = _POOLS.pop(jobs, None)
     if p is None:
         return
-    for proc in list((getattr(p, "_processes", None) or {}).values()):
+    running = list((getattr(p, "_processes", None) or {}).values())   # shutdown forgets them
+    p.shutdown(wait=False, cancel_futures=True)
+    for proc in running:
         proc.terminate()
-    p.shutdown(wait=True, cancel_futures=True)
+    for proc in running:
+        proc.join()
 
 
 def shutdown() -> None:

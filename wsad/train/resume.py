@@ -32,6 +32,8 @@ class GracefulStop:
     def __enter__(self):
         if threading.current_thread() is threading.main_thread():
             for sig in (signal.SIGINT, signal.SIGTERM):
+                if signal.getsignal(sig) is signal.SIG_IGN:
+                    continue   # a sweep's worker: Ctrl-C is its launcher's to handle (wsad.sweep)
                 self._previous[sig] = signal.signal(sig, self._handle)
         return self
 
