@@ -33,7 +33,8 @@ SMALL = {
                              "SCENARIO_OVERRIDES": SMALL_STORE},
     "05_operating_points": {"RECIPES": ["topk", "windows"], "SEEDS": 1, "EPOCHS": 2, "JOBS": 1,
                             "SCENARIO_OVERRIDES": SMALL_STORE},
-    "06_your_own_data": {"RECIPES": ["topk", "windows"], "SEEDS": 2, "EPOCHS": 2, "JOBS": 1},
+    "06_your_own_data": {"RECIPES": ["topk", "windows"], "SEEDS": 2, "EPOCHS": 2, "JOBS": 1,
+                         "SCENARIO_OVERRIDES": SMALL_STORE},
 }
 
 
