@@ -54,8 +54,8 @@ def test_workers_launcher_default_matches_its_early_start():
 
 
 def test_eight_runs_four_workers_fresh_sqlite(small_store, tmp_path):
-    """wsad's own launcher (hydra/launcher=workers: forked from one process that imported
-    torch and MLflow) on a fresh SQLite store; a trial's scores are those of the same run
+    """wsad's own launcher (hydra/launcher=workers: workers started before Hydra composes the sweep)
+    on a fresh SQLite store; a trial's scores are those of the same run
     trained in this process (bit for bit)."""
     res = wsad_train(tmp_path, "-m", f"data.root={small_store}", "trainer.members=1", "recipe=topk,windows",
                      "seed=0,1,2,3", *BASE, "hydra/launcher=workers", "hydra.launcher.n_jobs=4")
@@ -296,7 +296,7 @@ def test_ctrl_c_stops_a_workers_sweep_with_each_trial_resumable(small_store, tmp
     assert proc.returncode == 130, out[-3000:]
     assert out.count("resume with trainer.resume=") == 2 and "sweep stopped by signal 2" in out, out[-3000:]
     assert sorted(p.name for p in (tmp_path / "sweep").iterdir() if p.is_dir()) == ["0", "1"]
-    deadline = time.monotonic() + 30   # the fork server and resource tracker end as their pipes close
+    deadline = time.monotonic() + 30   # the resource tracker ends as its pipe closes
     while (alive := subprocess.run(["pgrep", "-g", str(proc.pid)], capture_output=True, text=True).stdout.split()) \
             and time.monotonic() < deadline:
         time.sleep(0.2)

@@ -1,4 +1,4 @@
-"""What every run of a worker imports, imported once by the workers' fork server (importing this
+"""What every run of a worker imports, at the worker's start (importing this
 module is the preload; :mod:`wsad.workers`)."""
 import os
 

@@ -1,14 +1,11 @@
 """Worker processes that live as long as the Python process (a notebook kernel, a sweep's
 launcher): a second study in the same kernel pays no start-up.
 
-The workers are forked from a fork server that imports torch, the training code and MLflow
-once (:mod:`wsad.preload`), not spawned to import them each: on two cores the imports of
-two spawned workers took twice the CPU of one, while the launcher itself was still starting.
-The server holds no thread when it forks, so forking it is safe; where fork does not exist the
-workers are spawned and import for themselves.
-
-A run that fails comes back as its error (one line), never as an exception that would lose the
-other runs."""
+The workers are spawned (each imports torch, the training code and MLflow itself,
+:mod:`wsad.preload`), never forked: a process that imported torch and MLflow already runs native
+threads of theirs, and a worker forked from one (a fork server's preload, tried) hung at random
+on a lock such a thread held: one of two concurrent test suites stopped in a notebook's study.
+"""
 from __future__ import annotations
 
 import atexit
@@ -26,7 +23,7 @@ _POOLS: dict[int, ProcessPoolExecutor] = {}
 
 
 def _warm() -> None:
-    """Import what every run needs (nothing left to do in a forked worker). Ctrl-C (or a kernel
+    """Import what every run needs (:mod:`wsad.preload`). Ctrl-C (or a kernel
     interrupt) reaches the process group: the parent decides, the workers do not die mid-run
     with a traceback."""
     import signal
@@ -40,14 +37,8 @@ def _warm() -> None:
 
 
 def _context():
-    """A fork server that preloads the imports, where the platform forks; else spawn."""
-    import multiprocessing
-
-    if "forkserver" not in multiprocessing.get_all_start_methods():
-        return get_context("spawn")
-    ctx = get_context("forkserver")
-    ctx.set_forkserver_preload(["wsad.preload"])
-    return ctx
+    """Spawned workers (see the module's docstring for why not forked)."""
+    return get_context("spawn")
 
 
 def execute(spec, out_dir: str, parent: str | None = None, settings: dict | None = None) -> dict:
