@@ -36,11 +36,6 @@ def _warm() -> None:
     torch.set_num_threads(1)
 
 
-def _context():
-    """Spawned workers (see the module's docstring for why not forked)."""
-    return get_context("spawn")
-
-
 def execute(spec, out_dir: str, parent: str | None = None, settings: dict | None = None) -> dict:
     """Train one run (in a worker or in this process): ``{"ok", "error", "seconds", "run_id"}``.
     ``spec``: a :class:`~wsad.study.spec.RunSpec` (its config composed when the study was
@@ -93,7 +88,7 @@ def pool(jobs: int) -> ProcessPoolExecutor:
     if p is None or getattr(p, "_broken", False):
         for other in list(_POOLS):   # one pool at a time: workers hold memory
             _POOLS.pop(other).shutdown(wait=False, cancel_futures=True)
-        p = ProcessPoolExecutor(jobs, mp_context=_context(), initializer=_warm)
+        p = ProcessPoolExecutor(jobs, mp_context=get_context("spawn"), initializer=_warm)
         _POOLS[jobs] = p
     return p
 
