@@ -10,10 +10,12 @@ strict: a broken link, a missing include or a failing notebook fails it.
 from __future__ import annotations
 
 import argparse
+import json
 import shutil
 import subprocess
 import sys
 import tempfile
+import time
 from pathlib import Path
 
 import yaml
@@ -60,23 +62,90 @@ def generated(tree: Path) -> None:
         shutil.copy(REPO / "benchmarks" / "results" / name, bench / name)
 
 
+#: Seconds a notebook cell may take before its execution fails (the defaults' longest cell takes
+#: a few minutes; a cell that never ends fails the build instead of hanging it).
+CELL_TIMEOUT = 1800
+#: Seconds between two looks at a kernel channel (below).
+POLL_SLICE = 0.25
+
+
+def _sliced_kernel_manager():
+    """A kernel manager whose client waits for the kernel's messages in slices of POLL_SLICE.
+
+    Why: the wake-up for a kernel message that has arrived is sometimes lost (measured here with
+    papermill 2.7, nbclient 0.11: a notebook of six small widget cells, 30 executions two at a
+    time, 4 of 180 cells waited out the whole per-cell timeout, then went on with the message that
+    had been there all along; with no timeout, the default, such a wait never ends: the suite hung
+    twice in widget cells). A poll that times out looks at the socket again and finds it, so a
+    lost wake-up costs one slice, not the build."""
+    from queue import Empty
+
+    from jupyter_client.asynchronous.client import AsyncKernelClient
+    from jupyter_client.channels import AsyncZMQSocketChannel
+    from jupyter_client.manager import AsyncKernelManager
+    from traitlets import Type, default
+
+    class SlicedChannel(AsyncZMQSocketChannel):
+        async def get_msg(self, timeout: float | None = None) -> dict:
+            deadline = None if timeout is None else time.monotonic() + timeout
+            while True:
+                left = POLL_SLICE if deadline is None else max(0.0, min(POLL_SLICE, deadline - time.monotonic()))
+                if await self.socket.poll(int(left * 1000)):
+                    return await self._recv()
+                if deadline is not None and time.monotonic() >= deadline:
+                    raise Empty
+
+    class SlicedClient(AsyncKernelClient):
+        shell_channel_class = Type(SlicedChannel)
+        iopub_channel_class = Type(SlicedChannel)
+        stdin_channel_class = Type(SlicedChannel)
+        control_channel_class = Type(SlicedChannel)
+
+    class SlicedKernelManager(AsyncKernelManager):
+        @default("client_factory")
+        def _sliced_client(self):
+            return SlicedClient
+
+    return SlicedKernelManager
+
+
+def execute_notebook(path: Path, out: Path, params: dict, work: Path) -> None:
+    """One notebook executed by papermill (cwd ``work``), with the sliced kernel client."""
+    import papermill
+
+    papermill.execute_notebook(str(path), str(out), parameters=params, cwd=str(work), kernel_name="python3",
+                               progress_bar=False, execution_timeout=CELL_TIMEOUT,
+                               kernel_manager_class=_sliced_kernel_manager())
+
+
 def execute_notebooks(into: Path, work: Path, small: bool, only: list[str] | None = None,
                       parallel: int = 2) -> dict[str, Path]:
-    """Every notebook executed with papermill (cwd ``work``) into ``into``, ``parallel`` kernels at a
-    time (each notebook writes its own nb_work/NN folder); returns name -> path. A failing
-    notebook raises papermill's error naming the cell."""
-    from concurrent.futures import ThreadPoolExecutor
+    """Every notebook executed (:func:`execute_notebook`) into ``into``, ``parallel`` at a time, each
+    in its own process (each notebook writes its own nb_work/NN folder); returns name -> path. A
+    failing notebook raises an error naming it, with papermill's last lines.
 
-    import papermill
+    Processes, not threads of this one: papermill changes the process's working directory while it
+    executes a notebook (two threads would restore each other's), and a process is killed at its
+    deadline."""
+    from concurrent.futures import ThreadPoolExecutor
 
     into.mkdir(parents=True, exist_ok=True)
     work.mkdir(parents=True, exist_ok=True)
     paths = [p for p in sorted((REPO / "notebooks").glob("*.ipynb")) if not only or p.stem in only]
+    code = ("import json, sys; from pathlib import Path; sys.path.insert(0, sys.argv[1]); import build_docs; "
+            "a = sys.argv; build_docs.execute_notebook(Path(a[2]), Path(a[3]), json.loads(a[4]), Path(a[5]))")
 
     def run(path: Path) -> Path:
         out = into / path.name
-        papermill.execute_notebook(str(path), str(out), parameters=SMALL.get(path.stem, {}) if small else {},
-                                   cwd=str(work), kernel_name="python3", progress_bar=False)
+        params = SMALL.get(path.stem, {}) if small else {}
+        cmd = [sys.executable, "-c", code, str(Path(__file__).parent), str(path), str(out), json.dumps(params),
+               str(work)]
+        try:
+            res = subprocess.run(cmd, capture_output=True, text=True, timeout=4 * CELL_TIMEOUT)
+        except subprocess.TimeoutExpired as err:
+            raise RuntimeError(f"notebook {path.stem} did not finish in {err.timeout:.0f} s") from None
+        if res.returncode != 0:
+            raise RuntimeError(f"notebook {path.stem} failed:\n" + "\n".join(res.stderr.splitlines()[-30:]))
         return out
 
     with ThreadPoolExecutor(max(1, parallel)) as pool:

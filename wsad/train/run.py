@@ -6,8 +6,6 @@ turns the scores into an :class:`~wsad.evaluate.Evaluation`, and the sinks publi
 """
 from __future__ import annotations
 
-import importlib
-import threading
 import warnings
 from contextlib import contextmanager
 from contextvars import ContextVar
@@ -87,18 +85,13 @@ def train_one_stage(cfg: DictConfig, overrides: list[str] | None, state: dict | 
         if chosen:
             sinks.log_rows([(epoch, None, {"selection/mean_weak_val_video_auc": value})
                             for epoch, value in enumerate(curve, 1)])
-        if draws_plots(cfg):
-            prefetch("wsad.evaluate.plots")   # matplotlib loads while the epochs run
+        # matplotlib is not imported in a background thread while the epochs run: it reads its style
+        # sheets under warnings.catch_warnings(record=True), which is process-wide, and on a busy
+        # machine it took this run's own warnings and logged them as its own
         fit(cfg, s, prog, sinks, resume_path)
         mark("epochs")
         s.members = train_members(cfg, int(cfg.trainer.members))
         return conclude(cfg, s, prog, sinks, transfer, chosen=chosen)
-
-
-def prefetch(module: str) -> None:
-    """Import ``module`` in a background thread (Python's import lock makes a later import of
-    it in the main thread wait for this one, never run it twice)."""
-    threading.Thread(target=importlib.import_module, args=(module,), daemon=True).start()
 
 
 @contextmanager
