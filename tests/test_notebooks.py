@@ -114,10 +114,8 @@ def test_running_the_ablation_again_trains_nothing(site):
 @pytest.mark.slow
 @pytest.mark.parametrize("path", NOTEBOOKS, ids=lambda p: p.stem)
 def test_notebook_runs_with_defaults(path, tmp_path):
-    import papermill
-
     out = tmp_path / path.name
-    papermill.execute_notebook(str(path), str(out), cwd=str(tmp_path), kernel_name="python3", progress_bar=False)
+    build_docs.execute_notebook(path, out, {}, tmp_path)
     assert _images(nbformat.read(out, as_version=4)) >= 1
 
 
