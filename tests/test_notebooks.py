@@ -111,6 +111,37 @@ def test_running_the_ablation_again_trains_nothing(site):
     assert {r.info.run_id for r in client.search_runs([exp.experiment_id])} == before
 
 
+def test_run_notebook_injects_parameters_and_names_a_failing_cell(tmp_path):
+    """scripts/run_notebook.py (the README's way to run notebook 06 on a store) against what
+    papermill documents: values injected after the cell tagged ``parameters``, typed as YAML."""
+    def notebook(name: str, *cells: str) -> Path:
+        nb = nbformat.v4.new_notebook()
+        nb.cells = [nbformat.v4.new_code_cell(c) for c in cells]
+        nb.cells[0].metadata["tags"] = ["parameters"]
+        nb.metadata["kernelspec"] = {"name": "python3", "display_name": "Python 3", "language": "python"}
+        nbformat.write(nb, tmp_path / name)
+        return tmp_path / name
+
+    def run(*args):
+        return subprocess.run([sys.executable, str(REPO / "scripts" / "run_notebook.py"), *map(str, args)],
+                              cwd=tmp_path, capture_output=True, text=True, timeout=300)
+
+    good = notebook("bay.ipynb", "LOADS = 1\nBAY = 'north'", "print(LOADS * 2, BAY, type(LOADS).__name__)")
+    res = run(good, tmp_path / "out.ipynb", "-p", "LOADS", "21", "-p", "BAY", "dock 4")
+    assert res.returncode == 0, res.stderr[-2000:]
+    assert "42 dock 4 int" in _text(nbformat.read(tmp_path / "out.ipynb", as_version=4))
+    bad = notebook("jam.ipynb", "LINE = 3", "raise ValueError(f'conveyor {LINE} jammed')")
+    res = run(bad, tmp_path / "jam_out.ipynb", "-p", "LINE", "7")
+    # one line of ours, last (the kernel's own start-up notice may precede it); the count is the
+    # cell's execution count, the injected parameters cell included
+    assert res.returncode == 1 and "cell [3] raised ValueError: conveyor 7 jammed" in res.stderr.splitlines()[-1]
+    res = run(tmp_path / "none.ipynb", tmp_path / "x.ipynb")
+    assert res.returncode == 2 and res.stderr.strip() == f"run_notebook.py: no notebook at {tmp_path / 'none.ipynb'}"
+    before = good.read_bytes()
+    res = run(good, good)
+    assert res.returncode == 2 and "overwrite" in res.stderr and good.read_bytes() == before
+
+
 @pytest.mark.slow
 @pytest.mark.parametrize("path", NOTEBOOKS, ids=lambda p: p.stem)
 def test_notebook_runs_with_defaults(path, tmp_path):
