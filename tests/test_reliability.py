@@ -201,6 +201,11 @@ def test_sigterm_after_epoch_two_then_resume_gives_identical_scores(small_store,
 def test_resume_of_unknown_or_finished_run_is_a_clear_error(small_store, tmp_path):
     res = cli(tmp_path, "train", "trainer.resume=0123456789abcdef", "trainer.progress=false")
     assert res.returncode == 2 and "no such run" in res.stderr and "Traceback" not in res.stderr
+    assert "no tracking store there" in res.stderr and not (tmp_path / "mlruns.db").exists()  # none made
+    mlflow.MlflowClient(f"sqlite:///{tmp_path}/mlruns.db").search_experiments()   # a store, without the run
+    res = cli(tmp_path, "train", "trainer.resume=0123456789abcdef", "trainer.progress=false")
+    assert res.returncode == 2 and "no such run" in res.stderr and "Traceback" not in res.stderr
+    assert "no tracking store there" not in res.stderr
 
 
 @pytest.mark.parametrize("delay", [pytest.param(3.0, marks=pytest.mark.slow), pytest.param(5.0, marks=pytest.mark.slow),

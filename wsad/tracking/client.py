@@ -184,8 +184,16 @@ def experiment_runs(uri: str, experiment: str, filter_string: str = "") -> list:
             return runs
 
 
+def _no_sqlite_store(uri: str) -> bool:
+    """Whether ``uri`` names a SQLite store that does not exist: a run looked up there does not
+    exist either, and opening it would create a store the user did not ask for."""
+    return uri.startswith("sqlite:///") and not Path(uri[len("sqlite:///"):]).exists()
+
+
 def get_run(uri: str, run_id: str):
     """The MLflow run ``run_id``, or one line when there is none."""
+    if _no_sqlite_store(uri):
+        raise WsadError(f"no run {run_id} at {uri} (no tracking store there)")
     try:
         return client(uri).get_run(run_id)
     except Exception:  # noqa: BLE001 - MLflow raises its own types for unknown ids
@@ -208,6 +216,8 @@ def download(uri: str, run_id: str, path: str, dst: Path) -> Path | None:
 
 def find_checkpoint(uri: str, run_id: str) -> Path:
     """The resume checkpoint of a run: its local path (tag), else its artifact."""
+    if _no_sqlite_store(uri):
+        raise WsadError(f"trainer.resume={run_id}: no such run at {uri} (no tracking store there)")
     try:
         run = client(uri).get_run(run_id)
     except Exception:  # noqa: BLE001 - MLflow raises its own types for unknown ids
