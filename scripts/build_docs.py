@@ -120,9 +120,10 @@ def execute_notebook(path: Path, out: Path, params: dict, work: Path) -> None:
 
 def execute_notebooks(into: Path, work: Path, small: bool, only: list[str] | None = None,
                       parallel: int = 2) -> dict[str, Path]:
-    """Every notebook executed (:func:`execute_notebook`) into ``into``, ``parallel`` at a time, each
-    in its own process (each notebook writes its own nb_work/NN folder); returns name -> path. A
-    failing notebook raises an error naming it, with papermill's last lines.
+    """Every notebook executed (:func:`execute_notebook`, by ``scripts/run_notebook.py``) into
+    ``into``, ``parallel`` at a time, each in its own process (each notebook writes its own
+    nb_work/NN folder); returns name -> path. A failing notebook raises an error naming it, with
+    the last lines its process wrote.
 
     Processes, not threads of this one: papermill changes the process's working directory while it
     executes a notebook (two threads would restore each other's), and a process is killed at its
@@ -132,16 +133,15 @@ def execute_notebooks(into: Path, work: Path, small: bool, only: list[str] | Non
     into.mkdir(parents=True, exist_ok=True)
     work.mkdir(parents=True, exist_ok=True)
     paths = [p for p in sorted((REPO / "notebooks").glob("*.ipynb")) if not only or p.stem in only]
-    code = ("import json, sys; from pathlib import Path; sys.path.insert(0, sys.argv[1]); import build_docs; "
-            "a = sys.argv; build_docs.execute_notebook(Path(a[2]), Path(a[3]), json.loads(a[4]), Path(a[5]))")
 
     def run(path: Path) -> Path:
         out = into / path.name
         params = SMALL.get(path.stem, {}) if small else {}
-        cmd = [sys.executable, "-c", code, str(Path(__file__).parent), str(path), str(out), json.dumps(params),
-               str(work)]
+        cmd = [sys.executable, str(Path(__file__).with_name("run_notebook.py")), str(path), str(out.resolve())]
+        for name, value in params.items():   # JSON is YAML: run_notebook.py reads each value back as it was
+            cmd += ["-p", name, json.dumps(value)]
         try:
-            res = subprocess.run(cmd, capture_output=True, text=True, timeout=4 * CELL_TIMEOUT)
+            res = subprocess.run(cmd, capture_output=True, text=True, cwd=work, timeout=4 * CELL_TIMEOUT)
         except subprocess.TimeoutExpired as err:
             raise RuntimeError(f"notebook {path.stem} did not finish in {err.timeout:.0f} s") from None
         if res.returncode != 0:

@@ -190,14 +190,16 @@ def _no_sqlite_store(uri: str) -> bool:
     return uri.startswith("sqlite:///") and not Path(uri[len("sqlite:///"):]).exists()
 
 
-def get_run(uri: str, run_id: str):
-    """The MLflow run ``run_id``, or one line when there is none."""
+def get_run(uri: str, run_id: str, missing: str | None = None):
+    """The MLflow run ``run_id``, or the one line ``missing`` (by default "no run ... at ...")
+    when there is none."""
+    missing = missing or f"no run {run_id} at {uri}"
     if _no_sqlite_store(uri):
-        raise WsadError(f"no run {run_id} at {uri} (no tracking store there)")
+        raise WsadError(f"{missing} (no tracking store there)")
     try:
         return client(uri).get_run(run_id)
     except Exception:  # noqa: BLE001 - MLflow raises its own types for unknown ids
-        raise WsadError(f"no run {run_id} at {uri}") from None
+        raise WsadError(missing) from None
 
 
 def metric_history(uri: str, run_id: str, key: str) -> list:
@@ -216,12 +218,7 @@ def download(uri: str, run_id: str, path: str, dst: Path) -> Path | None:
 
 def find_checkpoint(uri: str, run_id: str) -> Path:
     """The resume checkpoint of a run: its local path (tag), else its artifact."""
-    if _no_sqlite_store(uri):
-        raise WsadError(f"trainer.resume={run_id}: no such run at {uri} (no tracking store there)")
-    try:
-        run = client(uri).get_run(run_id)
-    except Exception:  # noqa: BLE001 - MLflow raises its own types for unknown ids
-        raise WsadError(f"trainer.resume={run_id}: no such run at {uri}") from None
+    run = get_run(uri, run_id, f"trainer.resume={run_id}: no such run at {uri}")
     if run.info.status == "FINISHED":
         raise WsadError(f"run {run_id} already FINISHED; nothing to resume")
     local = run.data.tags.get("wsad.resume_checkpoint")
