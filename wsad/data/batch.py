@@ -85,7 +85,7 @@ class BagLoader:
         return x
 
     def _stored_rows(self, it: Item) -> np.ndarray:
-        return self.store.view(it.video, it.view)[it.start:it.start + it.length]
+        return self.store.view(it.video, it.view, slice(it.start, it.start + it.length))
 
     def collate(self, items: list[Item]) -> Batch:
         lengths = np.array([self.bags.chunks or it.length for it in items])
