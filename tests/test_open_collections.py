@@ -39,8 +39,10 @@ def csv_path(name: str) -> Path:
 
 
 def baseline_auc(feats, labels, train_bags, test_bags) -> float:
-    """The reference: bag embedding (mean, max, min) + standardised logistic regression."""
-    embed = lambda b: np.concatenate([feats[b].mean(0), feats[b].max(0), feats[b].min(0)])  # noqa: E731
+    """The reference: bag embedding (mean, max, min) + standardised logistic regression, in float64
+    as numpy reads a CSV (on the store's float32 copies lbfgs stops at a weaker model: elephant,
+    fold assignment 1000, 0.921 against 0.957; measured)."""
+    embed = lambda b: np.concatenate([(x := feats[b].astype(np.float64)).mean(0), x.max(0), x.min(0)])  # noqa: E731
     clf = make_pipeline(StandardScaler(), LogisticRegression(C=0.1, max_iter=5000))
     clf.fit([embed(b) for b in train_bags], [labels[b] for b in train_bags])
     return roc_auc_score([labels[b] for b in test_bags], clf.decision_function([embed(b) for b in test_bags]))
