@@ -101,8 +101,7 @@ class FeatureStore:
         for v, s, e in zip(self.events["video"], self.events["start"], self.events["end"]):
             self._spans.setdefault(v, []).append((int(s), int(e)))
         self._n_seg: dict[str, int] = {}
-        self._maps: dict[str, np.ndarray] = {}
-        self._private_maps: dict[str, np.ndarray] = {}
+        self._maps: dict[tuple[str, str], np.ndarray] = {}   # (video, mmap mode) -> open map
         self._n_views: dict[str, int] = {}
 
     # -- manifest helpers -------------------------------------------------
@@ -129,9 +128,12 @@ class FeatureStore:
         Maps are kept open: opening one costs a header parse and a system call,
         which a batch of 32 windows would otherwise pay 32 times. Their pages
         belong to the operating system's file cache, not to the process."""
-        arr = self._maps.get(video)
+        return self._map(video, "r")
+
+    def _map(self, video: str, mode: str) -> np.ndarray:
+        arr = self._maps.get((video, mode))
         if arr is None:
-            arr = self._maps[video] = np.load(self.root / self._file[video], mmap_mode="r")
+            arr = self._maps[video, mode] = np.load(self.root / self._file[video], mmap_mode=mode)
         return arr
 
     def _shape(self, video: str) -> None:
@@ -166,10 +168,7 @@ class FeatureStore:
         """The video's array as a copy-on-write map: the same pages, but writable as far as
         torch can tell, so it wraps the map without a copy or a warning; a write would change
         this process's pages only, never the file."""
-        arr = self._private_maps.get(video)
-        if arr is None:
-            arr = self._private_maps[video] = np.load(self.root / self._file[video], mmap_mode="c")
-        return arr
+        return self._map(video, "c")
 
     def n_views(self, video: str) -> int:
         if video not in self._n_views:
