@@ -96,6 +96,14 @@ def sampling_sd(g: pd.DataFrame) -> float:
     return float(np.mean([auc_standard_error(auc, p, n) for p, n in zip(g.test_pos, g.test_neg)]))
 
 
+def bacc_sampling_sd(g: pd.DataFrame) -> float:
+    """The same floor for the balanced accuracy: ``sqrt(b (1 - b) (1/n_pos + 1/n_neg)) / 2``, the
+    binomial sd of the mean of two rates, each taken as the collection's mean wsad balanced
+    accuracy ``b`` (an approximation where sensitivity and specificity differ), averaged over the folds."""
+    b = float(g.wsad_bacc.mean())
+    return float(np.mean([np.sqrt(b * (1 - b) * (1 / p + 1 / n)) / 2 for p, n in zip(g.test_pos, g.test_neg)]))
+
+
 def summary(df: pd.DataFrame) -> pd.DataFrame:
     from scipy import stats
 
@@ -109,7 +117,8 @@ def summary(df: pd.DataFrame) -> pd.DataFrame:
                      **{f"{m}_{k}": g[f"{m}_{k}"].mean() for m in (*MODES, "logistic", "svm") for k in ("auc", "bacc")},
                      **{f"{m}_{k}_sd": g[f"{m}_{k}"].std(ddof=1) for m in (*MODES, "logistic", "svm")
                         for k in ("auc", "bacc")},
-                     "diff_auc": float(d.mean()), "p": p, "sampling_sd": sampling_sd(g)})
+                     "diff_auc": float(d.mean()), "p": p, "sampling_sd": sampling_sd(g),
+                     "bacc_sampling_sd": bacc_sampling_sd(g)})
     out = pd.DataFrame(rows)
     out["p_holm"] = holm(out.p.tolist())
     out["worse"] = (out.diff_auc < 0) & (out.p_holm < 0.05)
@@ -119,18 +128,18 @@ def summary(df: pd.DataFrame) -> pd.DataFrame:
 def markdown(s: pd.DataFrame, note: str) -> str:
     f = lambda m, k, r: f"{r[f'{m}_{k}']:.3f} ± {r[f'{m}_{k}_sd']:.3f}"  # noqa: E731
     lines = [note, "", "| collection | folds | members | wsad bag AUC | one model | logistic | SVM | "
-             "wsad bal. acc. | one model | logistic | SVM | wsad - logistic AUC (Holm p) | AUC sampling sd |",
-             "|---" * 13 + "|"]
+             "wsad bal. acc. | one model | logistic | SVM | wsad - logistic AUC (Holm p) | AUC sampling sd | "
+             "bal. acc. sampling sd |", "|---" * 14 + "|"]
     for r in s.to_dict("records"):
         flag = " **worse**" if r["worse"] else ""
         lines.append(f"| {r['collection']} | {r['folds']} | {r['members']} | {f('wsad', 'auc', r)} | "
                      f"{f('one', 'auc', r)} | {f('logistic', 'auc', r)} | {f('svm', 'auc', r)} | "
                      f"{f('wsad', 'bacc', r)} | {f('one', 'bacc', r)} | {f('logistic', 'bacc', r)} | "
                      f"{f('svm', 'bacc', r)} | {r['diff_auc']:+.3f} ({r['p_holm']:.3g}){flag} | "
-                     f"{r['sampling_sd']:.3f} |")
+                     f"{r['sampling_sd']:.3f} | {r['bacc_sampling_sd']:.3f} |")
     means = " | ".join(f"{s[f'{m}_{k}'].mean():.3f}" for k in ("auc", "bacc")
                        for m in ("wsad", "one", "logistic", "svm"))
-    lines.append(f"| mean over collections | | | {means} | {(s.wsad_auc - s.logistic_auc).mean():+.3f} | |")
+    lines.append(f"| mean over collections | | | {means} | {(s.wsad_auc - s.logistic_auc).mean():+.3f} | | |")
     return "\n".join(lines) + "\n"
 
 
@@ -154,7 +163,8 @@ def main() -> None:
             f"Mean ± sd over {args.assignments} x 5 folds (stratified, fold assignments 1000..); wsad with its "
             "defaults" + (f" and {', '.join(extra)}" if extra else "") + "; bold: worse than the logistic "
             "baseline at Holm-adjusted 0.05 (paired t across folds); AUC sampling sd: the sd one fold's AUC has "
-            "from its few test bags alone (Hanley & McNeil 1982), the floor of the fold-to-fold sd.")
+            "from its few test bags alone (Hanley & McNeil 1982), the floor of the fold-to-fold sd; bal. acc. "
+            "sampling sd: the same floor for the balanced accuracy (binomial).")
     text = markdown(summary(df), note)
     print(text)
     if args.out:

@@ -186,3 +186,34 @@ def test_small_collections_get_several_members_and_say_so(small_store, demo_stor
     assert member_count(compose_config([f"data.root={small_store}", "trainer.members=3"]), small) == (3, None)
     with pytest.raises(WsadError, match="trainer.members=0"):
         member_count(compose_config([f"data.root={small_store}", "trainer.members=0"]), small)
+
+
+def test_members_holding_out_folds_choose_the_threshold_out_of_fold(small_store, tmp_path):
+    """trainer.members_holdout=folds: member i is selected on fold i of the training cameras, so
+    every training video is held out once; its held-out score is that one member's score (read
+    back from the checkpoint and scored alone), and the video threshold is the max-balanced-accuracy
+    cut on those out-of-fold video scores."""
+    from wsad.checkpoint import scorer_from_checkpoint
+    from wsad.data.scorer import Scorer
+    from wsad.evaluate.decision import choose_video_threshold
+
+    res = train(compose_config([f"data.root={small_store}", "trainer.epochs=3", "trainer.members=3",
+                                "trainer.members_holdout=folds", f"trainer.out_dir={tmp_path}", *QUIET]))
+    store = FeatureStore(small_store)
+    folds = [weak_validation_split(store, 0.0, 3, i)[1] for i in range(3)]
+    assert sorted(v for f in folds for v in f) == sorted(store.videos("train"))   # each held out once
+    heldout = {v.video: v for v in res.evaluation.heldout}
+    assert sorted(heldout) == sorted(store.videos("train"))
+    scorer, _, _ = scorer_from_checkpoint(tmp_path / "model" / "checkpoint.pt")
+    for model, videos in zip([scorer.model, *scorer.others], folds):
+        alone = Scorer(model, scorer.std, scorer.chunks)(store, videos)
+        for v in videos:
+            np.testing.assert_allclose(heldout[v].segment_scores, alone[v], atol=1e-6)
+    everyone = scorer(store, folds[0][:1])[folds[0][0]]   # the averaged models score differently
+    assert not np.allclose(everyone, heldout[folds[0][0]].segment_scores, atol=1e-6)
+    maxima = [float(np.max(heldout[v].segment_scores)) for v in heldout]
+    assert res.metrics["video_threshold"] == pytest.approx(
+        choose_video_threshold(maxima, [store.label(v) for v in heldout]))
+    with pytest.raises(WsadError, match="members_holdout=folds"):
+        train(compose_config([f"data.root={small_store}", "trainer.members=3", "trainer.members_holdout=folds",
+                              "trainer.refit=true", f"trainer.out_dir={tmp_path}/refit", *QUIET]))

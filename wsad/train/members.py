@@ -11,6 +11,12 @@ two of the three small collections and rose on one, at five times a small run's 
 Every member trains on the same videos with the same standardiser and is selected on the
 same weak validation; member ``i`` uses seed ``seed + 1000 i``. The threshold
 and the operating point are chosen on the averaged held-out scores, like any run's.
+
+``trainer.members_holdout=folds`` deals the training cameras into one fold per member instead:
+member ``i`` is selected on fold ``i`` and trained on the rest, so every training video is held
+out by exactly one member, and the threshold and the operating point are chosen on those
+out-of-fold scores (every training video, not a fifth of them). The standardiser is then fitted
+on every training video (no labels), as the members share it.
 """
 from __future__ import annotations
 
@@ -62,18 +68,21 @@ def resolve_members(cfg: DictConfig, store: FeatureStore) -> str | None:
     return said
 
 
-def train_members(cfg: DictConfig, count: int) -> list[torch.nn.Module]:
+def train_members(cfg: DictConfig, count: int) -> tuple[list[torch.nn.Module], list[list[str]]]:
     """Members 2..``count``: trained silently and without tracking, each kept at its own
-    selected epoch, in evaluation mode."""
+    selected epoch, in evaluation mode; with their held-out videos when each holds out its own
+    fold (``trainer.members_holdout=folds``; else an empty list)."""
     from .loop import fit
     from .progress import Progress
-    from .setup import build, seed_everything
+    from .setup import build, holdout_folds, seed_everything
 
-    models = []
+    models, heldout = [], []
+    folds = holdout_folds(cfg)
     for i in range(1, count):
         sub = copy.deepcopy(cfg)
         with open_dict(sub):
             sub.seed = int(cfg.seed) + SEED_STEP * i
+            sub.trainer.weak_val_fold = i if folds > 1 else cfg.trainer.weak_val_fold
             sub.trainer.eval_every = 10 ** 9   # test curves are the first member's
             sub.trainer.progress = False
             sub.trainer.out_dir = tempfile.gettempdir()   # nothing is written: no resume state, no files
@@ -84,4 +93,6 @@ def train_members(cfg: DictConfig, count: int) -> list[torch.nn.Module]:
         s.model.load_state_dict(prog.best_state)
         s.model.eval()
         models.append(s.model)
-    return models
+        if folds > 1:
+            heldout.append(list(s.val_videos))
+    return models, heldout

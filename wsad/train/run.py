@@ -13,6 +13,7 @@ from pathlib import Path
 
 from omegaconf import DictConfig
 
+from ..data.scorer import Scorer
 from ..evaluate import Evaluation, EvaluationSettings, evaluate, scored
 from ..publish import FolderSink, Outcome, Run, Sink, Sinks
 from ..store import FeatureStore, store_fingerprint
@@ -23,7 +24,7 @@ from .members import resolve_members, train_members
 from .progress import Progress
 from .resume import TrainingInterrupted
 from .selection import chooses_epochs, refit_config, too_small
-from .setup import Setup, build, draws_plots, seed_everything
+from .setup import Setup, build, draws_plots, holdout_folds, seed_everything
 
 _PACKAGE = str(Path(__file__).resolve().parent.parent)
 #: The warnings of the run in progress (:func:`wsad.train.train` collects them).
@@ -68,6 +69,9 @@ def train_one_stage(cfg: DictConfig, overrides: list[str] | None, state: dict | 
     s = build(cfg)
     mark("build")
     several = resolve_members(cfg, s.store)
+    if holdout_folds(cfg) > 1:   # the first member holds out the first fold
+        seed_everything(int(cfg.seed), cfg.trainer.threads)
+        s = build(cfg)
     if cfg.trainer.select == "weak_val":
         small = too_small(s.store, s.val_videos)
     prog = Progress.start(s) if state is None else Progress.restore(state, s)
@@ -90,7 +94,7 @@ def train_one_stage(cfg: DictConfig, overrides: list[str] | None, state: dict | 
         # machine it took this run's own warnings and logged them as its own
         fit(cfg, s, prog, sinks, resume_path)
         mark("epochs")
-        s.members = train_members(cfg, int(cfg.trainer.members))
+        s.members, s.members_heldout = train_members(cfg, int(cfg.trainer.members))
         return conclude(cfg, s, prog, sinks, transfer, chosen=chosen)
 
 
@@ -125,7 +129,12 @@ def score_and_evaluate(cfg: DictConfig, s: Setup, prog: Progress,
     ones when none are held out) and each transfer store's test split. Evaluate: those scores."""
     scorer = s.scorer(prog.best_state)
     test = scored(s.store, scorer(s.store, s.test_videos))
-    heldout = scored(s.store, scorer(s.store, s.val_videos or s.fit_videos)).videos
+    if s.members_heldout:   # each training video scored by the one member that held it out
+        parts = zip([s.model, *s.members], [s.val_videos, *s.members_heldout])
+        heldout = scored(s.store, {v: x for model, videos in parts
+                                   for v, x in Scorer(model, s.std, s.bags.chunks)(s.store, videos).items()}).videos
+    else:
+        heldout = scored(s.store, scorer(s.store, s.val_videos or s.fit_videos)).videos
     other = {name: (str(store.root), scored(store, scorer(store, store.videos("test")))) for name, store in transfer}
     settings = EvaluationSettings.from_config(cfg, heldout_fitted=not s.val_videos)
     return evaluate(test, heldout, settings, other)

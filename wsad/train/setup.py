@@ -136,6 +136,7 @@ class Setup:
     epochs: int
     out_dir: Path
     members: list[torch.nn.Module] = field(default_factory=list)   # the run's other models (.members)
+    members_heldout: list[list[str]] = field(default_factory=list)  # each one's held-out videos (folds only)
 
     def scorer(self, state: dict | None = None) -> Scorer:
         """The model as a :class:`~wsad.data.scorer.Scorer` (holding ``state`` when given),
@@ -164,13 +165,19 @@ def build(cfg: DictConfig) -> Setup:
         raise WsadError(f"the store {cfg.data.root} has {len(errors)} problem(s), first: {errors[0]}; "
                         f"run wsad-check {cfg.data.root}")
     store = FeatureStore(cfg.data.root, crops=cfg.data.crops)
-    folds = int(cfg.trainer.weak_val_folds)
-    fit_videos, val_videos = weak_validation_split(store, float(cfg.trainer.weak_val_share), folds,
-                                                   int(cfg.trainer.weak_val_fold))
+    folds, member_folds = int(cfg.trainer.weak_val_folds), holdout_folds(cfg)
+    if member_folds > 1:   # this member holds out its own fold of the training cameras
+        fit_videos, val_videos = weak_validation_split(store, 0.0, member_folds, int(cfg.trainer.weak_val_fold))
+    else:
+        fit_videos, val_videos = weak_validation_split(store, float(cfg.trainer.weak_val_share), folds,
+                                                       int(cfg.trainer.weak_val_fold))
     if cfg.trainer.select == "weak_val" and not val_videos:
         raise WsadError("trainer.select=weak_val needs trainer.weak_val_share > 0")
     resolve_interval_unit(cfg, store)
-    std = Standardizer.fit(store, fit_videos) if cfg.data.standardize else Standardizer()
+    # members holding out different folds share one standardiser (the scorer and checkpoint hold one):
+    # fitted on every training video, without labels
+    std_videos = store.videos("train") if member_folds > 1 else fit_videos
+    std = Standardizer.fit(store, std_videos) if cfg.data.standardize else Standardizer()
     model = build_head(cfg, store.dim)
     pooling.check(model)
     optimizer = build_component(cfg.optim, "optim", params=model.parameters())
@@ -180,6 +187,15 @@ def build(cfg: DictConfig) -> Setup:
     loader = BagLoader(store, bags, std, ArrayCache(float(cfg.data.cache_mb)))
     return Setup(store, fit_videos, val_videos, store.videos("test"), std, bags, pooling,
                  bags.items(store, fit_videos), loader, model, terms, optimizer, schedule, epochs, out_dir)
+
+
+def holdout_folds(cfg: DictConfig) -> int:
+    """How many folds the run's members hold out, one each (``trainer.members_holdout=folds`` with
+    a resolved member count > 1); 1 when they share the usual held-out share."""
+    members = cfg.trainer.members
+    if cfg.trainer.members_holdout == "folds" and isinstance(members, int) and members > 1:
+        return members
+    return 1
 
 
 def check_selection(trainer: DictConfig, epochs: int) -> None:
@@ -192,6 +208,9 @@ def check_selection(trainer: DictConfig, epochs: int) -> None:
         raise WsadError(f"trainer.min_epoch={min_epoch}; use 1..trainer.epochs ({epochs})")
     if folds < 1:
         raise WsadError(f"trainer.weak_val_folds={folds}; use 1 (one held-out share) or k >= 2 folds")
+    if trainer.members_holdout == "folds" and (folds > 1 or trainer.refit):
+        raise WsadError("trainer.members_holdout=folds gives each member its own held-out fold; it does not "
+                        "combine with trainer.weak_val_folds > 1 or trainer.refit (which hold out nothing at the end)")
     if (folds > 1 or trainer.refit) and trainer.select != "weak_val":
         raise WsadError("trainer.weak_val_folds > 1 and trainer.refit select an epoch count on weak "
                         "validation; they need trainer.select=weak_val")
