@@ -10,6 +10,7 @@ import pytest
 from sklearn.metrics import accuracy_score, balanced_accuracy_score
 
 from wsad.config import compose_config
+from wsad.errors import WsadError
 from wsad.evaluate.decision import balanced_accuracy, choose_video_threshold
 from wsad.train import train
 
@@ -25,6 +26,15 @@ def test_threshold_maximises_balanced_accuracy_by_hand():
         yy, pred = rng.random(30) < 0.4, rng.random(30) < 0.5
         if yy.any() and not yy.all():
             assert balanced_accuracy(pred, yy) == pytest.approx(balanced_accuracy_score(yy, pred))
+
+
+def test_threshold_between_the_class_medians_by_hand():
+    # normal 0.1, 0.2, 0.4 -> median 0.2; anomalous 0.35, 0.8 -> median 0.575; halfway: 0.3875
+    s, y = [0.1, 0.2, 0.35, 0.4, 0.8], [0, 0, 1, 0, 1]
+    assert choose_video_threshold(s, y, "class_medians") == pytest.approx(0.3875)
+    assert choose_video_threshold(s, y, "balanced_accuracy") == pytest.approx(0.275)   # the default rule
+    with pytest.raises(WsadError, match="class_medians"):
+        choose_video_threshold(s, y, "youden")
 
 
 def _permuted_copy(src, dst, seed=0):

@@ -137,5 +137,5 @@ def test_the_self_attention_head_holds_on_birds(tmp_path):
     (measured: 0.992 and 0.989 against 0.985 and 0.983) and at least equal on the mean."""
     ours, ref = paired("birds_brown_creeper", 2, tmp_path, ("head=self_attention",))
     p = stats.ttest_rel(ours, ref).pvalue
-    print(f"birds_brown_creeper, head=self_attention: bag AUC {ours.mean():.3f} vs baseline {ref.mean():.3f} (p {p:.3g})")
+    print(f"birds_brown_creeper, head=self_attention: bag AUC {ours.mean():.3f} vs {ref.mean():.3f} (p {p:.3g})")
     assert ours.mean() >= ref.mean()

@@ -188,6 +188,25 @@ def test_small_collections_get_several_members_and_say_so(small_store, demo_stor
         member_count(compose_config([f"data.root={small_store}", "trainer.members=0"]), small)
 
 
+
+def test_the_small_collection_mode_holds_out_folds_and_thresholds_between_medians(small_store, demo_store):
+    """trainer.members=auto on a small store resolves the hold-out to folds and the threshold rule
+    to class medians (logged as such); explicit settings, a larger store and a refit keep the rest."""
+    from wsad.train.members import resolve_members
+
+    def resolved(root, *extra):
+        cfg = compose_config([f"data.root={root}", *extra])
+        resolve_members(cfg, FeatureStore(root))
+        return cfg.trainer.members, cfg.trainer.members_holdout, cfg.evaluate.video_threshold_rule
+
+    assert resolved(small_store) == (5, "folds", "class_medians")
+    assert resolved(demo_store) == (1, "shared", "balanced_accuracy")
+    assert resolved(small_store, "trainer.members=3") == (3, "shared", "balanced_accuracy")
+    assert resolved(small_store, "trainer.members_holdout=shared",
+                    "evaluate.video_threshold_rule=balanced_accuracy") == (5, "shared", "balanced_accuracy")
+    assert resolved(small_store, "trainer.refit=true") == (5, "shared", "class_medians")
+
+
 def test_members_holding_out_folds_choose_the_threshold_out_of_fold(small_store, tmp_path):
     """trainer.members_holdout=folds: member i is selected on fold i of the training cameras, so
     every training video is held out once; its held-out score is that one member's score (read

@@ -37,9 +37,10 @@ class TrainerSettings:
     refit: bool = _f(False, "after selecting an epoch count, retrain on all train videos for that many")
     members: Any = _f("auto", "models trained with seeds seed, seed + 1000, ... whose segment scores are averaged; "
                       "auto: 5 on a small collection (< 4,000 training segments), else 1 (wsad.train.members)")
-    members_holdout: str = _f("shared", "with several members: shared (every member selected on the same held-out "
+    members_holdout: str = _f("auto", "with several members: shared (every member selected on the same held-out "
                               "share) or folds (member i holds out fold i of the train cameras; the video threshold "
-                              "is chosen on every train video's out-of-fold score)", ("shared", "folds"))
+                              "is chosen on every train video's out-of-fold score); auto: folds in the "
+                              "small-collection mode, else shared", ("auto", "shared", "folds"))
     grad_clip: Optional[float] = _f(None, "clip the gradient norm to this (null: no clipping)")
     threads: Optional[int] = _f(None, "torch threads; null = all cores, or 1 per job in a sweep", bookkeeping=True)
     bootstrap: int = _f(1000, "cluster resamples for the final intervals (0 skips intervals)")
@@ -75,6 +76,10 @@ class EvaluateSettings:
     budget_confidence: Optional[float] = _f(None, "null: the threshold keeps the held-out rate within the budget; "
                                             "a level (0.95): keeps its exact Poisson upper bound within it")
     stores: list = _f([], "other stores (same feature dim) whose test splits the selected model is scored on")
+    video_threshold_rule: str = _f("auto", "how video_threshold is chosen on held-out training videos: "
+                                   "balanced_accuracy (the best cut) or class_medians (halfway between the two "
+                                   "classes' median scores); auto: class_medians in the small-collection mode, "
+                                   "else balanced_accuracy", ("auto", "balanced_accuracy", "class_medians"))
 
 
 @dataclass

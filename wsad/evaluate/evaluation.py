@@ -29,7 +29,7 @@ from .alarms import (
 )
 from .bootstrap import UNITS
 from .catalogue import compute_metrics
-from .decision import choose_video_threshold, video_decision
+from .decision import THRESHOLD_RULES, choose_video_threshold, video_decision
 from .det import det_points
 from .intervals import INTERVALS, grouped_bootstrap, macro_auc_interval
 from .metrics import VideoScores, frame_table
@@ -56,6 +56,7 @@ class EvaluationSettings:
     merge_gap_s: float = 0.0
     budget_confidence: float | None = None
     heldout_fitted: bool = False
+    video_threshold_rule: str = "balanced_accuracy"
 
     def __post_init__(self):
         if self.bootstrap < 0:
@@ -69,16 +70,21 @@ class EvaluationSettings:
         if self.budget_confidence is not None and not 0 < self.budget_confidence < 1:
             raise WsadError(f"evaluate.budget_confidence={self.budget_confidence}; use a level in (0, 1), e.g. "
                             "0.95, or null")
+        if self.video_threshold_rule not in THRESHOLD_RULES:
+            raise WsadError(f"evaluate.video_threshold_rule={self.video_threshold_rule!r}; use one of "
+                            f"{', '.join(THRESHOLD_RULES)}")
 
     @classmethod
     def from_config(cls, cfg, heldout_fitted: bool = False) -> EvaluationSettings:
         """The settings a run's config holds."""
         ev = cfg.get("evaluate") or {}
         conf = ev.get("budget_confidence")
+        rule = str(ev.get("video_threshold_rule", "auto"))   # auto left unresolved: no small-collection mode
         return cls(int(cfg.trainer.bootstrap), cfg.trainer.get("bootstrap_by"),
                    str(cfg.trainer.get("interval", "jackknife")), int(cfg.seed), float(ev.get("budget", 1.0)),
                    float(ev.get("min_alarm_s", 0.0)), float(ev.get("merge_gap_s", 0.0)),
-                   None if conf is None else float(conf), heldout_fitted)
+                   None if conf is None else float(conf), heldout_fitted,
+                   "balanced_accuracy" if rule == "auto" else rule)
 
     def as_dict(self) -> dict:
         return {f.name: getattr(self, f.name) for f in fields(self)}
@@ -177,7 +183,7 @@ def evaluate(test: Scored, heldout: list[VideoScores] | None = None,
                 metrics["macro_auc_lo"], metrics["macro_auc_hi"] = macro_auc_interval(
                     test.videos, settings.bootstrap, settings.seed, by)
         heldout = list(heldout or [])
-        metrics.update(_video_decision(test.videos, heldout))
+        metrics.update(_video_decision(test.videos, heldout, settings.video_threshold_rule))
         ev = Evaluation(metrics, settings, test, heldout)
         _operating_point(ev)
         for name, (path, scored) in (transfer or {}).items():
@@ -209,14 +215,14 @@ def few_cameras(clusters: int, by: str) -> None:
                   f"approximate below {FEW_CAMERAS}{note}; more test cameras narrow and steady them", stacklevel=3)
 
 
-def _video_decision(test: list[VideoScores], heldout: list[VideoScores]) -> dict[str, float]:
+def _video_decision(test: list[VideoScores], heldout: list[VideoScores], rule: str) -> dict[str, float]:
     """``video_threshold`` on the held-out videos' maximum scores, and the test accuracy at it."""
     labels = [v.label for v in heldout]
     if not heldout or len(set(labels)) < 2:
         if heldout:
             warnings.warn("video threshold skipped: the held-out videos are all of one label", stacklevel=3)
         return {}
-    threshold = choose_video_threshold([float(np.max(v.segment_scores)) for v in heldout], labels)
+    threshold = choose_video_threshold([float(np.max(v.segment_scores)) for v in heldout], labels, rule)
     return {"video_threshold": threshold, **video_decision(test, threshold)}
 
 
