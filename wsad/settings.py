@@ -37,10 +37,9 @@ class TrainerSettings:
     refit: bool = _f(False, "after selecting an epoch count, retrain on all train videos for that many")
     members: Any = _f("auto", "models trained with seeds seed, seed + 1000, ... whose segment scores are averaged; "
                       "auto: 5 on a small collection (< 4,000 training segments), else 1 (wsad.train.members)")
-    members_holdout: str = _f("auto", "with several members: shared (every member selected on the same held-out "
+    members_holdout: str = _f("shared", "with several members: shared (every member selected on the same held-out "
                               "share) or folds (member i holds out fold i of the train cameras; the video threshold "
-                              "is chosen on every train video's out-of-fold score); auto: folds in the "
-                              "small-collection mode, else shared", ("auto", "shared", "folds"))
+                              "is chosen on every train video's out-of-fold score)", ("shared", "folds"))
     grad_clip: Optional[float] = _f(None, "clip the gradient norm to this (null: no clipping)")
     threads: Optional[int] = _f(None, "torch threads; null = all cores, or 1 per job in a sweep", bookkeeping=True)
     bootstrap: int = _f(1000, "cluster resamples for the final intervals (0 skips intervals)")
