@@ -93,7 +93,8 @@ def train_members(cfg: DictConfig, count: int) -> tuple[list[torch.nn.Module], l
         sub = copy.deepcopy(cfg)
         with open_dict(sub):
             sub.seed = int(cfg.seed) + SEED_STEP * i
-            sub.trainer.weak_val_fold = i if folds > 1 else cfg.trainer.weak_val_fold
+            if folds > 1:
+                sub.trainer.weak_val_fold = i
             sub.trainer.eval_every = 10 ** 9   # test curves are the first member's
             sub.trainer.progress = False
             sub.trainer.out_dir = tempfile.gettempdir()   # nothing is written: no resume state, no files
